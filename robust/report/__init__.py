@@ -1,0 +1,1 @@
+"""Formatting of results: text tables, JSON, and (later) dossier files."""

@@ -1,0 +1,129 @@
+"""Readable text tables for the terminal."""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Sequence
+
+import numpy as np
+
+from robust.linear import REDUCED_STATES
+from robust.modelfacts import ModelFacts
+
+
+def fmt(x: float, digits: int = 4) -> str:
+    """A number with ``digits`` significant figures; inf and nan spelled out."""
+    if isinstance(x, (complex, np.complexfloating)):
+        if abs(x.imag) < 1e-12 * max(1.0, abs(x.real)):
+            return fmt(x.real, digits)
+        sign = "+" if x.imag >= 0 else "-"
+        return f"{fmt(x.real, digits)}{sign}{fmt(abs(x.imag), digits)}j"
+    x = float(x)
+    if math.isnan(x):
+        return "nan"
+    if math.isinf(x):
+        return "inf" if x > 0 else "-inf"
+    if x == 0:
+        return "0"
+    return f"{x:.{digits}g}"
+
+
+def table(headers: Sequence[str], rows: Sequence[Sequence[str]]) -> str:
+    """Left-aligned first column, right-aligned others, with a rule under the header."""
+    cols = list(zip(*([list(headers)] + [list(r) for r in rows])))
+    widths = [max(len(c) for c in col) for col in cols]
+
+    def line(cells):
+        out = [cells[0].ljust(widths[0])]
+        out += [c.rjust(w) for c, w in zip(cells[1:], widths[1:])]
+        return "  ".join(out).rstrip()
+
+    rule = "  ".join("-" * w for w in widths)
+    return "\n".join([line(headers), rule] + [line(r) for r in rows])
+
+
+def matrix(rows_names: Sequence[str], col_names: Sequence[str], m: np.ndarray) -> str:
+    """A small matrix as a table."""
+    return table(["", *col_names], [[r, *(fmt(v) for v in row)] for r, row in zip(rows_names, m)])
+
+
+def model_text(f: ModelFacts) -> str:
+    """The model command's report."""
+    out = [f"Model facts: {f.title}", f"case SHA-256 {f.case_sha256}", ""]
+    out.append("Composite body (chassis + payload, nominal)")
+    out.append(
+        table(
+            ["quantity", "value", "unit"],
+            [
+                ["mass", fmt(f.composite["mass_kg"]), "kg"],
+                ["centre-of-mass height above axle", fmt(f.composite["cg_height_m"]), "m"],
+                ["roll inertia about centre of mass", fmt(f.composite["roll_inertia_kg_m2"]), "kg m^2"],
+                ["pitch inertia about centre of mass", fmt(f.composite["pitch_inertia_kg_m2"]), "kg m^2"],
+                ["yaw inertia about centre of mass", fmt(f.composite["yaw_inertia_kg_m2"]), "kg m^2"],
+            ],
+        )
+    )
+    out += ["", "Open loop (reduced model, nominal)"]
+    out.append(
+        table(
+            ["quantity", "value", "unit"],
+            [
+                ["poles", ", ".join(fmt(p) for p in f.poles), "1/s"],
+                ["pitch divergence rate (unstable pole)", fmt(f.unstable_pole), "1/s"],
+                ["time to double", fmt(f.time_to_double_s * 1e3), "ms"],
+                ["drive torque, wheel locked", fmt(f.locked_torque_n_m), "N m"],
+                ["no-load wheel speed", fmt(f.no_load_wheel_speed_rad_s), "rad/s"],
+                ["no-load vehicle speed", fmt(f.no_load_vehicle_speed_m_s), "m/s"],
+            ],
+        )
+    )
+    out += [
+        "",
+        "Reduced model x' = A x + B u, x = (speed, yaw_rate, pitch, pitch_rate), u = (left, right) [N m]",
+    ]
+    out.append(matrix(REDUCED_STATES, REDUCED_STATES, f.reduced_A))
+    out.append("")
+    out.append(matrix(REDUCED_STATES, ["left", "right"], f.reduced_B))
+    out += ["", "Controllability"]
+    out.append(f"  full 7-state model: rank {f.full_rank} of 7")
+    out.append(f"  reduced 4-state model: rank {f.reduced_rank} of 4")
+    for mode, why in f.uncontrollable:
+        out.append(f"  uncontrollable mode at s = {fmt(mode.eigenvalue)}: {why}")
+    out.append(
+        "  x and heading are controllable integrators of speed and yaw rate; the balance"
+        " controller leaves them to an outer loop, so they are dropped with y."
+    )
+    out += ["", "Speed and yaw-rate commands by state shift (x - x_ref)"]
+    if f.shift_exact:
+        out.append("  exact: A x_ref = 0 for any speed and yaw-rate reference (no bearing friction)")
+    else:
+        out.append(
+            "  not exact: bearing friction makes A x_ref nonzero, leaving a steady-state error"
+            " unless a trim torque is added"
+        )
+        out.append(
+            f"  trim torque per wheel: {fmt(f.trim_per_speed_n_m_s)} N m per m/s of speed;"
+            f" +/-{fmt(f.trim_per_yaw_rate_n_m_s)} N m per rad/s of yaw rate (right +, left -)"
+        )
+    if f.corners is not None:
+        c = f.corners
+        out += ["", f"Corners of the parameter box ({len(c.points)})"]
+        rows = []
+        worst = int(np.argmax(c.unstable_pole))
+        for i, pt in enumerate(c.points):
+            mark = "<- fastest divergence" if i == worst else ""
+            rows.append(
+                [str(i + 1)]
+                + [fmt(v) for v in pt]
+                + [
+                    fmt(c.unstable_pole[i]),
+                    fmt(c.time_to_double_s[i] * 1e3),
+                    f"{c.reduced_rank[i]}/4",
+                    f"{c.full_rank[i]}/7",
+                    mark,
+                ]
+            )
+        out.append(
+            table(["corner", *c.names, "divergence [1/s]", "double [ms]", "rank 4", "rank 7", "note"], rows)
+        )
+    return "\n".join(out) + "\n"
