@@ -1,0 +1,1 @@
+"""Linear robustness analysis over batches of models: eigenvalues, margins, worst case, statistics."""

@@ -1,0 +1,1 @@
+"""Gain synthesis: nominal methods (pole placement, LQR) and LMI synthesis over the box."""
