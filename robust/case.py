@@ -10,7 +10,7 @@ from __future__ import annotations
 import hashlib
 import math
 import tomllib
-from dataclasses import dataclass
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any
 
@@ -36,6 +36,43 @@ class CaseError(ValueError):
 
 
 @dataclass(frozen=True)
+class Study:
+    """How the check samples the box (``[study]`` in the case file).
+
+    Attributes
+    ----------
+    plan
+        ``"monte_carlo"``, ``"sobol"``, ``"latin_hypercube"``, ``"grid"`` or ``"corners"``.
+    samples
+        Number of samples (random and quasi-random plans).
+    grid_points
+        Points per range (grid plan).
+    seed
+        Seed of every random choice (samples and the worst-case search).
+    confidence
+        Confidence level of failure-probability intervals. [-]
+    search
+        Run the worst-case search inside the box.
+    """
+
+    plan: str = "monte_carlo"
+    samples: int = 2000
+    grid_points: int = 5
+    seed: int = 1
+    confidence: float = 0.95
+    search: bool = True
+
+
+@dataclass(frozen=True)
+class GainSpec:
+    """A candidate gain as written in the case file (resolved by :func:`resolve_gain`)."""
+
+    name: str
+    method: str
+    data: dict
+
+
+@dataclass(frozen=True)
 class Case:
     """One validated design problem."""
 
@@ -43,6 +80,9 @@ class Case:
     source: str
     sha256: str
     box: Box
+    requirements: dict[str, float] = field(default_factory=dict)
+    study: Study = field(default_factory=Study)
+    gains: tuple[GainSpec, ...] = ()
 
     @property
     def vehicle(self) -> Vehicle:
@@ -52,7 +92,31 @@ class Case:
 
 _GROUPS = {"wheel": Wheel, "chassis": Body, "payload": Body, "drive": Drive}
 _OPTIONAL = {"wheel.bearing_friction_n_m_s_per_rad": 0.0}
-TOP_KEYS = ("title", "description", "vehicle", "ranges")
+TOP_KEYS = ("title", "description", "vehicle", "ranges", "requirements", "study", "gains")
+REQUIREMENT_UNITS = {
+    "min_decay_rate_per_s": ("1/s", 0.0, None),
+    "min_damping_ratio": ("-", -1.0, 1.0),
+    "max_natural_frequency_rad_s": ("rad/s", 0.0, None),
+    "min_gain_margin_db": ("dB", 0.0, None),
+    "min_phase_margin_deg": ("deg", 0.0, 180.0),
+    "min_delay_margin_ms": ("ms", 0.0, None),
+    "min_disk_margin": ("-", 0.0, 2.0),
+    "min_multiloop_disk_margin": ("-", 0.0, 2.0),
+}
+GAIN_METHODS = {
+    "matrix": ("matrix",),
+    "poles": ("poles", "complex_poles"),
+    "lqr": (
+        "state_weights",
+        "input_weights",
+        "max_speed_error_m_s",
+        "max_yaw_rate_error_rad_s",
+        "max_pitch_deg",
+        "max_pitch_rate_deg_s",
+        "max_torque_n_m",
+    ),
+    "file": ("path",),
+}
 
 
 def _type_name(value: Any) -> str:
@@ -238,7 +302,191 @@ def parse_case(text: str, *, source: str = "<text>") -> Case:
     vehicle = _vehicle(doc)
     ranges = _ranges(doc, vehicle)
     digest = hashlib.sha256(text.encode("utf-8")).hexdigest()
-    return Case(title=title, source=source, sha256=digest, box=Box(vehicle, ranges))
+    return Case(
+        title=title,
+        source=source,
+        sha256=digest,
+        box=Box(vehicle, ranges),
+        requirements=_requirements(doc),
+        study=_study(doc),
+        gains=_gains(doc),
+    )
+
+
+def _requirements(doc: dict) -> dict[str, float]:
+    rt = _table(doc, "requirements", "", required=False)
+    _check_keys(rt, list(REQUIREMENT_UNITS), "requirements")
+    out = {}
+    for key in rt:
+        unit, lo, hi = REQUIREMENT_UNITS[key]
+        v = _number(rt, key, "requirements", unit)
+        if v < lo or (hi is not None and v > hi):
+            want = f">= {lo:g}" if hi is None else f"between {lo:g} and {hi:g}"
+            raise CaseError(f"'requirements.{key}': expected {want} [{unit}], got {v:g}")
+        out[key] = v
+    return out
+
+
+def _integer(table: dict, key: str, path: str, *, default: int, low: int) -> int:
+    full = f"{path}.{key}"
+    if key not in table:
+        return default
+    v = table[key]
+    if isinstance(v, bool) or not isinstance(v, int):
+        raise CaseError(f"'{full}': expected a whole number, got {_type_name(v)} {v!r}")
+    if v < low:
+        raise CaseError(f"'{full}': expected >= {low}, got {v}")
+    return v
+
+
+def _study(doc: dict) -> Study:
+    from robust.uncertainty import PLANS
+
+    st = _table(doc, "study", "", required=False)
+    _check_keys(st, ["plan", "samples", "grid_points", "seed", "confidence", "worst_case_search"], "study")
+    base = Study()
+    plan = _text(st, "plan", "study", default=base.plan)
+    if plan not in PLANS:
+        raise CaseError(f"'study.plan': expected one of {', '.join(PLANS)}, got {plan!r}")
+    confidence = _number(st, "confidence", "study", "-", default=base.confidence)
+    if not 0 < confidence < 1:
+        raise CaseError(f"'study.confidence': expected a number between 0 and 1, got {confidence:g}")
+    search = st.get("worst_case_search", base.search)
+    if not isinstance(search, bool):
+        raise CaseError(f"'study.worst_case_search': expected true or false, got {search!r}")
+    return Study(
+        plan=plan,
+        samples=_integer(st, "samples", "study", default=base.samples, low=1),
+        grid_points=_integer(st, "grid_points", "study", default=base.grid_points, low=2),
+        seed=_integer(st, "seed", "study", default=base.seed, low=0),
+        confidence=confidence,
+        search=search,
+    )
+
+
+def _number_list(table: dict, key: str, path: str, unit: str, length: int | None) -> list:
+    full = f"{path}.{key}"
+    v = table[key]
+    if not isinstance(v, list) or (length is not None and len(v) != length):
+        n = f"{length} " if length else ""
+        raise CaseError(f"'{full}': expected a list of {n}numbers [{unit}], got {v!r}")
+    for x in v:
+        if isinstance(x, bool) or not isinstance(x, (int, float)) or not math.isfinite(x):
+            raise CaseError(f"'{full}': expected finite numbers [{unit}], got {x!r}")
+    return [float(x) for x in v]
+
+
+def _gains(doc: dict) -> tuple[GainSpec, ...]:
+    gt = _table(doc, "gains", "", required=False)
+    out = []
+    for name in gt:
+        path = f"gains.{name}"
+        tab = _table(gt, name, "gains")
+        method = _text(tab, "method", path)
+        if method not in GAIN_METHODS:
+            raise CaseError(f"'{path}.method': expected one of {', '.join(GAIN_METHODS)}, got {method!r}")
+        _check_keys(tab, ["method", *GAIN_METHODS[method]], path)
+        data: dict = {}
+        if method == "matrix":
+            m = tab.get("matrix")
+            if not (isinstance(m, list) and len(m) == 2):
+                raise CaseError(
+                    f"'{path}.matrix': expected 2 rows of 4 numbers (left, right wheel), got {m!r}"
+                )
+            data["matrix"] = [_number_list({"r": r}, "r", f"{path}.matrix", "SI", 4) for r in m]
+        elif method == "poles":
+            if "poles" not in tab:
+                raise CaseError(f"missing key '{path}.poles': expected a list of real poles [1/s]")
+            real = _number_list(tab, "poles", path, "1/s", None)
+            pairs = []
+            for i, pair in enumerate(tab.get("complex_poles", [])):
+                pairs.append(_number_list({"p": pair}, "p", f"{path}.complex_poles[{i}]", "1/s", 2))
+            if len(real) + 2 * len(pairs) != 4:
+                raise CaseError(
+                    f"'{path}': expected 4 closed-loop poles in all (real poles plus 2 per complex pair), "
+                    f"got {len(real)} real and {len(pairs)} pairs"
+                )
+            if any(p >= 0 for p in real) or any(p[0] >= 0 for p in pairs):
+                raise CaseError(f"'{path}': every pole must have a negative real part [1/s]")
+            data = {"poles": real, "complex_poles": pairs}
+        elif method == "lqr":
+            direct = "state_weights" in tab or "input_weights" in tab
+            bryson = [k for k in GAIN_METHODS["lqr"][2:] if k in tab]
+            if direct and bryson:
+                raise CaseError(
+                    f"'{path}': give either state_weights/input_weights or the max_* keys, not both"
+                )
+            if direct:
+                for key, n in (("state_weights", 4), ("input_weights", 2)):
+                    if key not in tab:
+                        raise CaseError(f"missing key '{path}.{key}': expected {n} numbers")
+                    vals = _number_list(tab, key, path, "SI", n)
+                    if any(x < 0 for x in vals) or (key == "input_weights" and any(x <= 0 for x in vals)):
+                        raise CaseError(f"'{path}.{key}': weights must be positive, got {vals}")
+                    data[key] = vals
+            else:
+                units = ["m/s", "rad/s", "deg", "deg/s", "N m"]
+                for key, unit in zip(GAIN_METHODS["lqr"][2:], units):
+                    v = _number(tab, key, path, unit)
+                    if v <= 0:
+                        raise CaseError(f"'{path}.{key}': expected > 0 [{unit}], got {v:g}")
+                    data[key] = v
+        else:
+            data["path"] = _text(tab, "path", path)
+        out.append(GainSpec(name=name, method=method, data=data))
+    return tuple(out)
+
+
+def resolve_gain(case: Case, spec: GainSpec):
+    """Turn a gain spec into a :class:`robust.gains.GainSet` (placing poles / solving LQR on the nominal model)."""
+    from robust.gains import GainSet, read_gain_file
+    from robust.linear import reduced_model
+    from robust.synthesis.nominal import bryson_weights, lqr, place
+
+    path = f"gains.{spec.name}"
+    nominal = reduced_model(plant_batch(case.vehicle))
+    A, B = nominal.A[0], nominal.B[0]
+    prov = {"case_sha256": case.sha256, "method": spec.method}
+    try:
+        if spec.method == "matrix":
+            return GainSet(spec.name, np.array(spec.data["matrix"]), "matrix", prov)
+        if spec.method == "poles":
+            poles = list(spec.data["poles"])
+            for re, im in spec.data["complex_poles"]:
+                poles += [complex(re, im), complex(re, -im)]
+            K = place(A, B, np.array(poles))
+            prov["poles"] = [float(p) for p in spec.data["poles"]]
+            if spec.data["complex_poles"]:
+                prov["complex_poles"] = [list(p) for p in spec.data["complex_poles"]]
+            return GainSet(spec.name, K, "pole placement on the nominal model", prov)
+        if spec.method == "lqr":
+            if "state_weights" in spec.data:
+                Q = np.diag(spec.data["state_weights"])
+                R = np.diag(spec.data["input_weights"])
+            else:
+                d = spec.data
+                w = bryson_weights(
+                    np.array(
+                        [
+                            d["max_speed_error_m_s"],
+                            d["max_yaw_rate_error_rad_s"],
+                            np.radians(d["max_pitch_deg"]),
+                            np.radians(d["max_pitch_rate_deg_s"]),
+                        ]
+                    ),
+                    np.array([d["max_torque_n_m"]] * 2),
+                )
+                Q, R = w["Q"], w["R"]
+            K = lqr(A, B, Q, R)["K"]
+            prov |= {"state_weights": np.diag(Q).tolist(), "input_weights": np.diag(R).tolist()}
+            return GainSet(spec.name, K, "LQR on the nominal model", prov)
+        file = Path(spec.data["path"])
+        if not file.is_absolute() and case.source not in ("<text>",):
+            file = Path(case.source).parent / file
+        g = read_gain_file(file)
+        return replace(g, name=spec.name)
+    except (ValueError, np.linalg.LinAlgError) as exc:
+        raise CaseError(f"'{path}': {exc}") from None
 
 
 def load_case(path: str | Path) -> Case:

@@ -21,6 +21,75 @@ def _model(args: argparse.Namespace) -> int:
     return 0
 
 
+def _progress(quiet: bool):
+    if quiet:
+        return None
+    return lambda msg: print(f"robust: {msg}", file=sys.stderr, flush=True)
+
+
+def _gain_sets(case, names, files):
+    from robust.case import resolve_gain
+    from robust.gains import read_gain_file
+
+    specs = {s.name: s for s in case.gains}
+    unknown = [n for n in names or [] if n not in specs]
+    if unknown:
+        raise CaseError(f"unknown gain set {unknown[0]!r}; the case defines: {', '.join(specs) or 'none'}")
+    chosen = names if names else ([] if files else list(specs))
+    gains = [resolve_gain(case, specs[n]) for n in chosen]
+    gains += [read_gain_file(f) for f in files or []]
+    return gains
+
+
+def _check(args: argparse.Namespace) -> int:
+    from robust.check import run_check, with_overrides
+    from robust.report.jsonout import dumps
+    from robust.report.text import check_text
+
+    case = load_case(args.case)
+    gains = _gain_sets(case, args.gain, args.gain_file)
+    study = with_overrides(
+        case.study,
+        plan=args.plan,
+        samples=args.samples,
+        seed=args.seed,
+        search=False if args.no_search else None,
+    )
+    result = run_check(case, gains, study=study, progress=_progress(args.quiet))
+    sys.stdout.write(dumps(result) if args.json else check_text(result))
+    return 0 if result.passed else 1
+
+
+def _positive_int(text: str) -> int:
+    try:
+        v = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a whole number, got {text!r}") from None
+    if v < 1:
+        raise argparse.ArgumentTypeError(f"expected >= 1, got {v}")
+    return v
+
+
+def _seed(text: str) -> int:
+    try:
+        v = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a whole number, got {text!r}") from None
+    if v < 0:
+        raise argparse.ArgumentTypeError(f"expected >= 0, got {v}")
+    return v
+
+
+def _study_options(p: argparse.ArgumentParser) -> None:
+    from robust.uncertainty import PLANS
+
+    p.add_argument("--plan", choices=PLANS, help="sampling plan (default: the case's [study])")
+    p.add_argument("--samples", type=_positive_int, help="number of samples (random plans)")
+    p.add_argument("--seed", type=_seed, help="seed for sampling and search")
+    p.add_argument("--no-search", action="store_true", help="skip the worst-case search inside the box")
+    p.add_argument("--quiet", action="store_true", help="no progress messages")
+
+
 def build_parser() -> argparse.ArgumentParser:
     """The argument parser (exposed for documentation and tests)."""
     parser = argparse.ArgumentParser(
@@ -33,6 +102,21 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("case", help="case file (TOML)")
     p.add_argument("--json", action="store_true", help="print JSON instead of text")
     p.set_defaults(func=_model)
+
+    p = sub.add_parser(
+        "check",
+        help="check gain sets against the whole parameter box (eigenvalues, margins, worst case)",
+    )
+    p.add_argument("case", help="case file (TOML)")
+    p.add_argument(
+        "--gain", action="append", metavar="NAME", help="gain set from the case (repeatable; default all)"
+    )
+    p.add_argument(
+        "--gain-file", action="append", metavar="PATH", help="gain file to check as well (repeatable)"
+    )
+    _study_options(p)
+    p.add_argument("--json", action="store_true", help="print JSON instead of text")
+    p.set_defaults(func=_check)
     return parser
 
 

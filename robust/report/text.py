@@ -127,3 +127,90 @@ def model_text(f: ModelFacts) -> str:
             table(["corner", *c.names, "divergence [1/s]", "double [ms]", "rank 4", "rank 7", "note"], rows)
         )
     return "\n".join(out) + "\n"
+
+
+def _loc(at: dict[str, float]) -> str:
+    return ", ".join(f"{k}={fmt(v, 4)}" for k, v in at.items()) or "nominal"
+
+
+def _pct(x: float) -> str:
+    return f"{100 * x:.3g}%"
+
+
+def gain_matrix_text(K: np.ndarray) -> str:
+    """The 2 x 4 gain as a table with units."""
+    units = ("N m s/m", "N m s/rad", "N m/rad", "N m s/rad")
+    heads = [f"{s} [{u}]" for s, u in zip(REDUCED_STATES, units)]
+    return table(["wheel", *heads], [[w, *(fmt(v, 5) for v in row)] for w, row in zip(("left", "right"), K)])
+
+
+def check_text(result) -> str:
+    """The check command's report: one block per gain set."""
+    st = result.study
+    out = [
+        f"Robustness check: {result.title}",
+        f"case SHA-256 {result.case_sha256}",
+        f"plan {st.plan}, {result.samples} samples, seed {st.seed}, confidence {st.confidence:g}; "
+        f"worst-case search {'on' if st.search else 'off'}",
+        f"(zero failures in {result.samples_for_1pct_at_confidence} Monte Carlo samples shows P(fail) < 1% "
+        f"at {st.confidence:g} confidence; Tempo, Bai and Dabbene 1997)",
+    ]
+    for g in result.gains:
+        out += ["", "=" * 78, f"Gain set '{g.gain.name}' ({g.gain.origin}): {'PASS' if g.passed else 'FAIL'}"]
+        out.append(gain_matrix_text(g.gain.K))
+        out += ["", "Worst case over the box (* marks the worst of corner / sample / search)"]
+        rows = []
+        for s in g.summaries:
+            cells = []
+            for w in (s.worst_corner, s.worst_sample, s.worst_search):
+                if w is None:
+                    cells.append("-")
+                else:
+                    star = "*" if w is s.worst else " "
+                    cells.append(fmt(w.value) + star)
+            pct = s.percentiles
+            spread = f"{fmt(pct['p5'])} / {fmt(pct['p50'])} / {fmt(pct['p95'])}" if pct else "-"
+            rows.append([s.name, s.unit, fmt(s.nominal), *cells, spread])
+        out.append(table(["metric", "unit", "nominal", "corner", "sample", "search", "p5 / p50 / p95"], rows))
+        out += ["", "Where the worst cases are"]
+        out.append(
+            table(
+                ["metric", "found by", "location"],
+                [[s.name, s.worst.source, _loc(s.worst.at)] for s in g.summaries],
+            )
+        )
+        out += ["", "Loop-at-a-time margins per wheel input (nominal | worst over corners and samples)"]
+        keys = list(g.inputs[0].nominal)
+        rows = [[k, *(f"{fmt(i.nominal[k])} | {fmt(i.worst[k])}" for i in g.inputs)] for k in keys]
+        out.append(table(["margin", *(f"{i.wheel} wheel" for i in g.inputs)], rows))
+        if g.verdicts:
+            out += ["", "Requirements"]
+            rows = []
+            for v in g.verdicts:
+                interval = (
+                    f"{_pct(v.failure_fraction)} [{_pct(v.failure_interval[0])}, {_pct(v.failure_interval[1])}]"
+                    if v.failure_interval
+                    else f"{_pct(v.failure_fraction)} of samples"
+                )
+                rows.append(
+                    [
+                        v.requirement,
+                        v.metric,
+                        fmt(v.threshold),
+                        fmt(v.worst),
+                        fmt(v.margin),
+                        "pass" if v.passed else "FAIL",
+                        interval,
+                    ]
+                )
+            out.append(
+                table(
+                    ["requirement", "metric", "bound", "worst", "margin", "verdict", "P(fail) [interval]"],
+                    rows,
+                )
+            )
+        else:
+            out += ["", "No requirements in the case file: nothing to pass or fail."]
+    verdict = "every requirement holds" if result.passed else "at least one requirement fails"
+    out += ["", f"Overall: {verdict} for the gain sets checked."]
+    return "\n".join(out) + "\n"
