@@ -179,14 +179,14 @@ def _vehicle(doc: dict) -> Vehicle:
         names = [n.split(".")[1] for n in PARAMETERS if n.startswith(group + ".")]
         _check_keys(gt, names, f"vehicle.{group}")
         values = {}
-        for field in names:
-            info = PARAMETERS[f"{group}.{field}"]
-            values[field] = _number(
+        for key in names:
+            info = PARAMETERS[f"{group}.{key}"]
+            values[key] = _number(
                 gt,
-                field,
+                key,
                 f"vehicle.{group}",
                 info.unit,
-                default=_OPTIONAL.get(f"{group}.{field}"),
+                default=_OPTIONAL.get(f"{group}.{key}"),
             )
         parts[group] = cls(**values)
     g = _number(vt, "gravity_m_s2", "vehicle", "m/s^2", default=STANDARD_GRAVITY)
@@ -219,11 +219,11 @@ def _ranges(doc: dict, vehicle: Vehicle) -> tuple[Range, ...]:
         gt = _table(rt, group, "ranges")
         names = [n.split(".")[1] for n in PARAMETERS if n.startswith(group + ".")]
         _check_keys(gt, names, f"ranges.{group}")
-        for field in gt:
-            name = f"{group}.{field}"
+        for fname in gt:
+            name = f"{group}.{fname}"
             path = f"ranges.{name}"
             info = PARAMETERS[name]
-            tab = _table(gt, field, f"ranges.{group}")
+            tab = _table(gt, fname, f"ranges.{group}")
             _check_keys(tab, ["low", "high", "distribution", "mode", "std"], path)
             low = _number(tab, "low", path, info.unit)
             high = _number(tab, "high", path, info.unit)
@@ -438,7 +438,10 @@ def _gains(doc: dict) -> tuple[GainSpec, ...]:
 
 
 def resolve_gain(case: Case, spec: GainSpec):
-    """Turn a gain spec into a :class:`robust.gains.GainSet` (placing poles / solving LQR on the nominal model)."""
+    """Turn a gain spec into a :class:`robust.gains.GainSet`.
+
+    Poles are placed and LQR solved on the nominal reduced model.
+    """
     from robust.gains import GainSet, read_gain_file
     from robust.linear import reduced_model
     from robust.synthesis.nominal import bryson_weights, lqr, place

@@ -187,11 +187,11 @@ def check_text(result) -> str:
             out += ["", "Requirements"]
             rows = []
             for v in g.verdicts:
-                interval = (
-                    f"{_pct(v.failure_fraction)} [{_pct(v.failure_interval[0])}, {_pct(v.failure_interval[1])}]"
-                    if v.failure_interval
-                    else f"{_pct(v.failure_fraction)} of samples"
-                )
+                if v.failure_interval:
+                    lo, hi = v.failure_interval
+                    interval = f"{_pct(v.failure_fraction)} [{_pct(lo)}, {_pct(hi)}]"
+                else:
+                    interval = f"{_pct(v.failure_fraction)} of samples"
                 rows.append(
                     [
                         v.requirement,
