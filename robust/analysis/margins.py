@@ -215,7 +215,8 @@ def loop_margins(A: np.ndarray, B: np.ndarray, K: np.ndarray) -> LoopMargins:
         g = _padd(_pmul(De, De), _shift(_pmul(Do, Do)), -_pmul(Ne, Ne), -_shift(_pmul(No, No)))
         wc2 = _newton(g, _real_nonneg(_roots(g)))
         wc = np.sqrt(wc2)
-        L = _at(N, wc) / _at(D, wc)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            L = _at(N, wc) / _at(D, wc)
         theta = np.angle(L)
         pm = np.remainder(np.degrees(theta), 360.0) - 180.0
         valid = np.isfinite(wc) & (wc > 0)
@@ -293,7 +294,8 @@ def _input_sensitivity_shifted(V, lam, left, right, w):
 
     ``left = K V`` ``(n, 2, 4)``, ``right = V^-1 B`` ``(n, 4, 2)``; ``w`` is ``(n, m)``.
     """
-    res = 1.0 / (1j * w[:, :, None] - lam[:, None, :])  # (n, m, 4)
+    with np.errstate(divide="ignore", invalid="ignore"):  # only unstable loops reach a pole
+        res = 1.0 / (1j * w[:, :, None] - lam[:, None, :])  # (n, m, 4)
     G = np.einsum("nik,nmk,nkj->nmij", left, res, right)
     return 0.5 * np.eye(2) - G
 
