@@ -97,8 +97,9 @@ def main() -> None:
         for j in range(2):
             o = 1 - j
             F = m.A[i] - m.B[i][:, o : o + 1] @ K[o : o + 1]
-            gm, pm, *_ = control.stability_margins(control.ss(F, m.B[i][:, j : j + 1], K[j : j + 1], 0),
-                                                   returnall=True)
+            gm, pm, *_ = control.stability_margins(
+                control.ss(F, m.B[i][:, j : j + 1], K[j : j + 1], 0), returnall=True
+            )
             gm = np.asarray(gm)
             below = gm[(gm < 1) & (gm > 1e-6)]
             if below.size:
@@ -108,8 +109,10 @@ def main() -> None:
     t_ctrl = time.perf_counter() - t
     r_ours, r_ctrl = n_m / t_ours, n_loop / t_ctrl
     print(f"  python-control loop {r_ctrl:>10,.0f} samples/s; ours {r_ours:>10,.0f} samples/s")
-    print(f"  ratio: {r_ours / r_ctrl:,.0f}x (target >= 30x); largest difference {worst_db:.2e} dB, "
-          f"{worst_deg:.2e} deg (target 0.01)")
+    print(
+        f"  ratio: {r_ours / r_ctrl:,.0f}x (target >= 30x); largest difference {worst_db:.2e} dB, "
+        f"{worst_deg:.2e} deg (target 0.01)"
+    )
 
     if not args.quick:
         print("3. One million Monte Carlo samples of eigen metrics, chunks of 50,000 (fresh process)")

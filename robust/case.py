@@ -16,6 +16,7 @@ from typing import Any
 
 import numpy as np
 
+from robust.simulate import MANOEUVRE_KINDS, Controller, Manoeuvre
 from robust.uncertainty import DISTRIBUTIONS, Box, Range
 from robust.vehicle import (
     PARAMETERS,
@@ -53,6 +54,9 @@ class Study:
         Confidence level of failure-probability intervals. [-]
     search
         Run the worst-case search inside the box.
+    simulation_samples
+        Monte Carlo samples (the first of the same random stream) simulated in
+        the time domain, in addition to the corners.
     """
 
     plan: str = "monte_carlo"
@@ -61,6 +65,7 @@ class Study:
     seed: int = 1
     confidence: float = 0.95
     search: bool = True
+    simulation_samples: int = 40
 
 
 @dataclass(frozen=True)
@@ -83,6 +88,8 @@ class Case:
     requirements: dict[str, float] = field(default_factory=dict)
     study: Study = field(default_factory=Study)
     gains: tuple[GainSpec, ...] = ()
+    controller: Controller = field(default_factory=Controller)
+    manoeuvres: tuple[Manoeuvre, ...] = ()
 
     @property
     def vehicle(self) -> Vehicle:
@@ -92,7 +99,17 @@ class Case:
 
 _GROUPS = {"wheel": Wheel, "chassis": Body, "payload": Body, "drive": Drive}
 _OPTIONAL = {"wheel.bearing_friction_n_m_s_per_rad": 0.0}
-TOP_KEYS = ("title", "description", "vehicle", "ranges", "requirements", "study", "gains")
+TOP_KEYS = (
+    "title",
+    "description",
+    "vehicle",
+    "ranges",
+    "requirements",
+    "study",
+    "gains",
+    "controller",
+    "manoeuvres",
+)
 REQUIREMENT_UNITS = {
     "min_decay_rate_per_s": ("1/s", 0.0, None),
     "min_damping_ratio": ("-", -1.0, 1.0),
@@ -102,6 +119,30 @@ REQUIREMENT_UNITS = {
     "min_delay_margin_ms": ("ms", 0.0, None),
     "min_disk_margin": ("-", 0.0, 2.0),
     "min_multiloop_disk_margin": ("-", 0.0, 2.0),
+    "max_wheel_torque_n_m": ("N m", 0.0, None),
+    "max_pitch_deg": ("deg", 0.0, 90.0),
+    "max_settling_time_s": ("s", 0.0, None),
+    "min_survivable_speed_step_m_s": ("m/s", 0.0, None),
+    "min_survivable_yaw_rate_step_rad_s": ("rad/s", 0.0, None),
+}
+MANOEUVRE_KEYS = {
+    "speed_step": ("duration_s", "start_s", "speed_m_s"),
+    "speed_ramp": ("duration_s", "start_s", "speed_m_s", "ramp_time_s"),
+    "yaw_rate_step": ("duration_s", "start_s", "yaw_rate_rad_s"),
+    "speed_and_yaw_rate_step": ("duration_s", "start_s", "speed_m_s", "yaw_rate_rad_s"),
+    "push": ("duration_s", "start_s", "push_force_n", "push_height_m", "push_duration_s"),
+    "tilted_start": ("duration_s", "initial_pitch_deg"),
+}
+MANOEUVRE_UNITS = {
+    "duration_s": "s",
+    "start_s": "s",
+    "speed_m_s": "m/s",
+    "ramp_time_s": "s",
+    "yaw_rate_rad_s": "rad/s",
+    "push_force_n": "N",
+    "push_height_m": "m",
+    "push_duration_s": "s",
+    "initial_pitch_deg": "deg",
 }
 GAIN_METHODS = {
     "matrix": ("matrix",),
@@ -310,6 +351,8 @@ def parse_case(text: str, *, source: str = "<text>") -> Case:
         requirements=_requirements(doc),
         study=_study(doc),
         gains=_gains(doc),
+        controller=(ctl := _controller(doc)),
+        manoeuvres=_manoeuvres(doc, vehicle, ctl),
     )
 
 
@@ -343,7 +386,11 @@ def _study(doc: dict) -> Study:
     from robust.uncertainty import PLANS
 
     st = _table(doc, "study", "", required=False)
-    _check_keys(st, ["plan", "samples", "grid_points", "seed", "confidence", "worst_case_search"], "study")
+    _check_keys(
+        st,
+        ["plan", "samples", "grid_points", "seed", "confidence", "worst_case_search", "simulation_samples"],
+        "study",
+    )
     base = Study()
     plan = _text(st, "plan", "study", default=base.plan)
     if plan not in PLANS:
@@ -361,7 +408,76 @@ def _study(doc: dict) -> Study:
         seed=_integer(st, "seed", "study", default=base.seed, low=0),
         confidence=confidence,
         search=search,
+        simulation_samples=_integer(
+            st, "simulation_samples", "study", default=base.simulation_samples, low=0
+        ),
     )
+
+
+def _controller(doc: dict) -> Controller:
+    ct = _table(doc, "controller", "", required=False)
+    _check_keys(ct, ["sample_period_s", "latency_s", "fall_angle_deg", "trim"], "controller")
+    base = Controller()
+    period = _number(ct, "sample_period_s", "controller", "s", default=base.sample_period_s)
+    if not 1e-4 <= period <= 0.1:
+        raise CaseError(f"'controller.sample_period_s': expected between 0.0001 and 0.1 [s], got {period:g}")
+    latency = _number(ct, "latency_s", "controller", "s", default=base.latency_s)
+    if not 0 <= latency <= period:
+        raise CaseError(
+            f"'controller.latency_s': expected between 0 and the sample period {period:g} [s], "
+            f"got {latency:g}"
+        )
+    fall = _number(ct, "fall_angle_deg", "controller", "deg", default=float(np.degrees(base.fall_angle_rad)))
+    if not 0 < fall < 90:
+        raise CaseError(f"'controller.fall_angle_deg': expected between 0 and 90 [deg], got {fall:g}")
+    trim = ct.get("trim", base.trim)
+    if not isinstance(trim, bool):
+        raise CaseError(f"'controller.trim': expected true or false, got {trim!r}")
+    return Controller(
+        sample_period_s=period, latency_s=latency, fall_angle_rad=float(np.radians(fall)), trim=trim
+    )
+
+
+def _manoeuvres(doc: dict, vehicle: Vehicle, controller: Controller) -> tuple[Manoeuvre, ...]:
+    mt = _table(doc, "manoeuvres", "", required=False)
+    out = []
+    no_load = vehicle.drive.supply_v / vehicle.drive.back_emf_v_s_per_rad * vehicle.wheel.radius_m
+    for name in mt:
+        path = f"manoeuvres.{name}"
+        tab = _table(mt, name, "manoeuvres")
+        kind = _text(tab, "kind", path)
+        if kind not in MANOEUVRE_KINDS:
+            raise CaseError(f"'{path}.kind': expected one of {', '.join(MANOEUVRE_KINDS)}, got {kind!r}")
+        keys = MANOEUVRE_KEYS[kind]
+        _check_keys(tab, ["kind", *keys], path)
+        vals = {}
+        for key in keys:
+            default = 0.0 if key == "start_s" else None
+            vals[key] = _number(tab, key, path, MANOEUVRE_UNITS[key], default=default)
+        dur = vals["duration_s"]
+        if not 0 < dur <= 120:
+            raise CaseError(f"'{path}.duration_s': expected between 0 and 120 [s], got {dur:g}")
+        if dur < 10 * controller.sample_period_s:
+            raise CaseError(f"'{path}.duration_s': expected at least 10 controller periods, got {dur:g} s")
+        if not 0 <= vals.get("start_s", 0.0) < dur:
+            raise CaseError(
+                f"'{path}.start_s': expected between 0 and the duration {dur:g} [s], got {vals['start_s']:g}"
+            )
+        if "speed_m_s" in vals and abs(vals["speed_m_s"]) >= no_load:
+            raise CaseError(
+                f"'{path}.speed_m_s': {vals['speed_m_s']:g} m/s is beyond the drive's no-load speed "
+                f"{no_load:.3g} m/s (supply / back-EMF constant x wheel radius)"
+            )
+        for key in ("ramp_time_s", "push_duration_s"):
+            if key in vals and vals[key] <= 0:
+                raise CaseError(f"'{path}.{key}': expected > 0 [s], got {vals[key]:g}")
+        if "push_height_m" in vals and vals["push_height_m"] < 0:
+            raise CaseError(f"'{path}.push_height_m': expected >= 0 [m], got {vals['push_height_m']:g}")
+        pitch = float(np.radians(vals.pop("initial_pitch_deg", 0.0)))
+        if abs(pitch) >= controller.fall_angle_rad:
+            raise CaseError(f"'{path}.initial_pitch_deg': must be smaller than the fall angle")
+        out.append(Manoeuvre(name=name, kind=kind, initial_pitch_rad=pitch, **vals))
+    return tuple(out)
 
 
 def _number_list(table: dict, key: str, path: str, unit: str, length: int | None) -> list:

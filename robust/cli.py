@@ -60,6 +60,34 @@ def _check(args: argparse.Namespace) -> int:
     return 0 if result.passed else 1
 
 
+def _simulate(args: argparse.Namespace) -> int:
+    from robust.report.jsonout import dumps
+    from robust.report.text import time_text
+    from robust.timecheck import run_time_check
+
+    case = load_case(args.case)
+    if not case.manoeuvres:
+        raise CaseError(f"{args.case}: no [manoeuvres.NAME] tables: nothing to simulate")
+    gains = _gain_sets(case, args.gain, args.gain_file)
+    study = case.study
+    if args.simulation_samples is not None:
+        from dataclasses import replace
+
+        study = replace(study, simulation_samples=args.simulation_samples)
+    if args.seed is not None:
+        from dataclasses import replace
+
+        study = replace(study, seed=args.seed)
+    result = run_time_check(case, gains, study=study, progress=_progress(args.quiet))
+    sys.stdout.write(dumps(result) if args.json else time_text(result))
+    return 0 if result.passed else 1
+
+
+def _nonneg_int(text: str) -> int:
+    v = _seed(text)
+    return v
+
+
 def _positive_int(text: str) -> int:
     try:
         v = int(text)
@@ -117,6 +145,25 @@ def build_parser() -> argparse.ArgumentParser:
     _study_options(p)
     p.add_argument("--json", action="store_true", help="print JSON instead of text")
     p.set_defaults(func=_check)
+
+    p = sub.add_parser(
+        "simulate",
+        help="simulate gain sets through the case's manoeuvres on the nonlinear model with drive limits",
+    )
+    p.add_argument("case", help="case file (TOML)")
+    p.add_argument(
+        "--gain", action="append", metavar="NAME", help="gain set from the case (repeatable; default all)"
+    )
+    p.add_argument(
+        "--gain-file", action="append", metavar="PATH", help="gain file to simulate as well (repeatable)"
+    )
+    p.add_argument("--simulation-samples", type=_nonneg_int, help="Monte Carlo samples besides the corners")
+    p.add_argument("--seed", type=_seed, help="seed of the Monte Carlo samples")
+    p.add_argument("--quiet", action="store_true", help="no progress messages")
+    p.add_argument(
+        "--json", action="store_true", help="print JSON instead of text (includes envelopes and traces)"
+    )
+    p.set_defaults(func=_simulate)
     return parser
 
 

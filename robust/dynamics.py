@@ -53,7 +53,7 @@ def wheel_spin_rates(plant: Plant, speed, yaw_rate, pitch_rate):
     return np.stack([left, right], axis=-1)
 
 
-def accelerations(plant: Plant, speed, yaw_rate, pitch, pitch_rate, torque):
+def accelerations(plant: Plant, speed, yaw_rate, pitch, pitch_rate, torque, push=None):
     """Accelerations ``(v', w', p'')`` of a batch of vehicles.
 
     Parameters
@@ -64,6 +64,10 @@ def accelerations(plant: Plant, speed, yaw_rate, pitch, pitch_rate, torque):
         Arrays of shape ``(n,)``. [m/s, rad/s, rad, rad/s]
     torque
         Delivered wheel torques, shape ``(n, 2)``, left then right. [N m]
+    push
+        Optional ``(force, height)``: a horizontal forward force on the body
+        [N] at a height above the axle along the body axis [m], each ``(n,)``.
+        Its generalized forces are ``F`` (speed) and ``F h cos(p)`` (pitch).
 
     Returns
     -------
@@ -73,26 +77,28 @@ def accelerations(plant: Plant, speed, yaw_rate, pitch, pitch_rate, torque):
     """
     p = plant
     torque = np.asarray(torque, dtype=float)
-    rel = wheel_spin_rates(p, speed, yaw_rate, pitch_rate)
-    net = torque - p.c_b[:, None] * rel
+    if np.any(p.c_b):
+        rel = wheel_spin_rates(p, speed, yaw_rate, pitch_rate)
+        net = torque - p.c_b[:, None] * rel
+    else:
+        net = torque
     S = net[:, 0] + net[:, 1]
     D = net[:, 1] - net[:, 0]
     s, c = np.sin(pitch), np.cos(pitch)
-    Ml = p.M * p.l
-    m11 = p.M + 2.0 * p.m_w + 2.0 * p.J_w / p.r**2
-    m33 = p.I2 + Ml * p.l
-    m22 = (
-        (p.I1 + Ml * p.l) * s**2
-        + p.I3 * c**2
-        + 2.0 * p.m_w * p.d**2
-        + 2.0 * p.J_w * p.d**2 / p.r**2
-        + 2.0 * p.K_w
-    )
-    f1 = S / p.r + Ml * s * (pitch_rate**2 + yaw_rate**2)
-    f3 = Ml * p.g * s - S - (p.I3 - p.I1 - Ml * p.l) * s * c * yaw_rate**2
-    det = m11 * m33 - (Ml * c) ** 2
-    dv = (m33 * f1 - Ml * c * f3) / det
-    ddp = (m11 * f3 - Ml * c * f1) / det
+    Ml, m11, m33 = p.Ml, p.m11, p.m33
+    s2 = s * s
+    m22 = (p.I1 + Ml * p.l) * s2 + p.I3 * (1.0 - s2) + p.yaw_wheels
+    w2 = yaw_rate * yaw_rate
+    f1 = S / p.r + Ml * s * (pitch_rate * pitch_rate + w2)
+    f3 = Ml * p.g * s - S - (p.I3 - p.I1 - Ml * p.l) * s * c * w2
+    if push is not None:
+        force, height = push
+        f1 = f1 + force
+        f3 = f3 + force * height * c
+    Mlc = Ml * c
+    det = m11 * m33 - Mlc * Mlc
+    dv = (m33 * f1 - Mlc * f3) / det
+    ddp = (m11 * f3 - Mlc * f1) / det
     dw = (
         p.d * D / p.r
         - 2.0 * (p.I1 - p.I3 + Ml * p.l) * s * c * yaw_rate * pitch_rate
@@ -101,15 +107,15 @@ def accelerations(plant: Plant, speed, yaw_rate, pitch, pitch_rate, torque):
     return np.stack([dv, dw, ddp], axis=-1)
 
 
-def derivative(plant: Plant, state, torque):
+def derivative(plant: Plant, state, torque, push=None):
     """Time derivative of the 7-state vector, shape ``(n, 7)``.
 
     ``state`` has shape ``(n, 7)`` (see module docstring); ``torque`` the
-    delivered wheel torques ``(n, 2)`` [N m].
+    delivered wheel torques ``(n, 2)`` [N m]; ``push`` as in :func:`accelerations`.
     """
     state = np.asarray(state, dtype=float)
     v, w, th, thd = state[:, SPEED], state[:, YAW_RATE], state[:, PITCH], state[:, PITCH_RATE]
-    acc = accelerations(plant, v, w, th, thd, torque)
+    acc = accelerations(plant, v, w, th, thd, torque, push)
     hd = state[:, HEADING]
     out = np.empty_like(state)
     out[:, X] = v * np.cos(hd)
@@ -131,15 +137,8 @@ def energy(plant: Plant, state):
     state = np.asarray(state, dtype=float)
     v, w, th, thd = state[:, SPEED], state[:, YAW_RATE], state[:, PITCH], state[:, PITCH_RATE]
     s, c = np.sin(th), np.cos(th)
-    Ml = p.M * p.l
-    m11 = p.M + 2.0 * p.m_w + 2.0 * p.J_w / p.r**2
-    m22 = (
-        (p.I1 + Ml * p.l) * s**2
-        + p.I3 * c**2
-        + 2.0 * p.m_w * p.d**2
-        + 2.0 * p.J_w * p.d**2 / p.r**2
-        + 2.0 * p.K_w
-    )
+    Ml, m11 = p.Ml, p.m11
+    m22 = (p.I1 + Ml * p.l) * s**2 + p.I3 * c**2 + p.yaw_wheels
     kinetic = 0.5 * m11 * v**2 + Ml * c * v * thd + 0.5 * (p.I2 + Ml * p.l) * thd**2
     kinetic = kinetic + 0.5 * m22 * w**2
     return kinetic + Ml * p.g * c
@@ -189,6 +188,12 @@ def _current_bounds(plant: Plant, spin_rate: np.ndarray):
     lo = np.clip(-imax, v_lo, v_hi)
     hi = np.clip(imax, v_lo, v_hi)
     return lo, hi, v_lo, v_hi
+
+
+def delivered_torque(plant: Plant, wanted_current: np.ndarray, spin_rate: np.ndarray) -> np.ndarray:
+    """Delivered torque ``(n, 2)`` [N m] for wanted currents ``(n, 2)`` [A] (hot path of the simulator)."""
+    lo, hi, _, _ = _current_bounds(plant, spin_rate)
+    return plant.kt[:, None] * np.minimum(np.maximum(wanted_current, lo), hi)
 
 
 def drive_output(plant: Plant, command, spin_rate):

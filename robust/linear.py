@@ -256,9 +256,12 @@ def reference_shift(plant: Plant) -> ReferenceShift:
     )
 
 
-def trim_torque(plant: Plant, speed, yaw_rate) -> np.ndarray:
-    """Commanded trim torques ``(n, 2)`` [N m] that hold ``speed`` [m/s] and ``yaw_rate`` [rad/s]."""
-    shift = reference_shift(plant)
+def trim_torque(plant: Plant, speed, yaw_rate, *, shift: ReferenceShift | None = None) -> np.ndarray:
+    """Commanded trim torques ``(n, 2)`` [N m] that hold ``speed`` [m/s] and ``yaw_rate`` [rad/s].
+
+    Pass a precomputed ``shift`` (from :func:`reference_shift`) to save work in loops.
+    """
+    shift = shift or reference_shift(plant)
     base = shift.trim_per_speed_n_m_s * speed
     turn = shift.trim_per_yaw_rate_n_m_s * yaw_rate
     return np.stack([base - turn, base + turn], axis=-1)

@@ -11,6 +11,7 @@ from __future__ import annotations
 
 from collections.abc import Mapping
 from dataclasses import dataclass, fields, replace
+from functools import cached_property
 
 import numpy as np
 
@@ -164,6 +165,26 @@ class Plant:
     def n(self) -> int:
         """Number of vehicles in the batch."""
         return int(self.r.shape[0])
+
+    @cached_property
+    def Ml(self) -> np.ndarray:
+        """``M l``: first moment of the body about the axle. [kg m]"""
+        return self.M * self.l
+
+    @cached_property
+    def m11(self) -> np.ndarray:
+        """Effective translational mass ``M + 2 m_w + 2 J_w / r^2``. [kg]"""
+        return self.M + 2.0 * self.m_w + 2.0 * self.J_w / self.r**2
+
+    @cached_property
+    def m33(self) -> np.ndarray:
+        """Pitch inertia about the axle ``I2 + M l^2``. [kg m^2]"""
+        return self.I2 + self.Ml * self.l
+
+    @cached_property
+    def yaw_wheels(self) -> np.ndarray:
+        """Yaw inertia contributed by the wheels ``2 m_w d^2 + 2 J_w d^2 / r^2 + 2 K_w``. [kg m^2]"""
+        return 2.0 * self.m_w * self.d**2 + 2.0 * self.J_w * self.d**2 / self.r**2 + 2.0 * self.K_w
 
     @property
     def kt_ratio(self) -> np.ndarray:

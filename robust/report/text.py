@@ -214,3 +214,49 @@ def check_text(result) -> str:
     verdict = "every requirement holds" if result.passed else "at least one requirement fails"
     out += ["", f"Overall: {verdict} for the gain sets checked."]
     return "\n".join(out) + "\n"
+
+
+def time_text(result) -> str:
+    """The simulate command's report."""
+    st = result.study
+    out = [
+        f"Time-domain check: {result.title}",
+        f"case SHA-256 {result.case_sha256}",
+        f"{result.models} models (corners + {st.simulation_samples} Monte Carlo samples, seed {st.seed}); "
+        f"controller {1 / result.sample_period_s:.4g} Hz, latency {result.latency_s * 1e3:.3g} ms, "
+        f"fall beyond {result.fall_angle_deg:.3g} deg",
+    ]
+    for g in result.gains:
+        out += ["", "=" * 78, f"Gain set '{g.gain.name}' ({g.gain.origin}): {'PASS' if g.passed else 'FAIL'}"]
+        for m in g.manoeuvres:
+            fall = (
+                f"{m.fell} of {m.models} fell (first at {fmt(m.first_fall_s)} s)" if m.fell else "none fell"
+            )
+            out += ["", f"Manoeuvre '{m.name}' ({m.kind}): {fall}"]
+            rows = [[w.name, w.unit, fmt(w.median), fmt(w.value), _loc(w.at)] for w in m.worst]
+            out.append(table(["metric", "unit", "median", "worst", "worst at"], rows))
+        out += ["", "Survivable steps (no fall, current limit never reached)"]
+        rows = []
+        for s in g.survivable:
+            rows.append([s.kind, s.unit, fmt(float(np.median(s.survived))), fmt(s.worst), _loc(s.worst_at)])
+        out.append(table(["step", "unit", "median", "worst", "worst at"], rows))
+        if g.verdicts:
+            out += ["", "Requirements"]
+            rows = [
+                [
+                    v.requirement,
+                    fmt(v.threshold),
+                    fmt(v.worst),
+                    v.unit,
+                    fmt(v.margin),
+                    "pass" if v.passed else "FAIL",
+                    f"{v.failures} of {v.models}",
+                ]
+                for v in g.verdicts
+            ]
+            out.append(
+                table(["requirement", "bound", "worst", "unit", "margin", "verdict", "failing runs"], rows)
+            )
+    verdict = "every requirement holds" if result.passed else "at least one requirement fails"
+    out += ["", f"Overall: {verdict} for the gain sets simulated."]
+    return "\n".join(out) + "\n"

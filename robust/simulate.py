@@ -1,0 +1,457 @@
+"""Batched time-domain simulation of the full nonlinear vehicle with its drives.
+
+One call simulates ``n`` vehicles (leading batch axis) through the same
+manoeuvre.  The controller runs at a fixed sample period on the shifted
+state ``x - x_ref`` with a computation latency (the new command reaches the
+drives ``latency`` after the sample; zero-order hold); the drives clip the
+current by the current limit and by the voltage left after back-EMF.  The
+plant is integrated with the classical fourth-order Runge-Kutta method on a
+fixed step that divides each controller period exactly (the latency instant
+is a step boundary).  Metrics are accumulated on the fly, so memory does
+not grow with the number of steps; response envelopes (min / median / max
+across samples per controller step) are optional.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from robust.dynamics import PITCH, PITCH_RATE, SPEED, YAW_RATE, delivered_torque, derivative, drive_output
+from robust.linear import REDUCED_INDEX, reference_shift, trim_torque
+from robust.vehicle import Plant
+
+MANOEUVRE_KINDS = (
+    "speed_step",
+    "speed_ramp",
+    "yaw_rate_step",
+    "speed_and_yaw_rate_step",
+    "push",
+    "tilted_start",
+)
+ENVELOPE_QUANTITIES = ("speed", "yaw_rate", "pitch", "torque_left", "torque_right")
+ENVELOPE_UNITS = ("m/s", "rad/s", "rad", "N m", "N m")
+
+
+@dataclass(frozen=True)
+class Controller:
+    """The sampled-data balance controller.
+
+    Attributes
+    ----------
+    sample_period_s
+        Controller period. [s]
+    latency_s
+        Delay from sampling to the new command reaching the drives (0 to one period). [s]
+    fall_angle_rad
+        Pitch beyond which a sample counts as fallen and stops being integrated. [rad]
+    trim
+        Add the trim torque that cancels bearing friction at the reference motion.
+    substeps
+        Runge-Kutta steps per controller period.
+    """
+
+    sample_period_s: float = 0.005
+    latency_s: float = 0.0
+    fall_angle_rad: float = np.radians(45.0)
+    trim: bool = True
+    substeps: int = 2
+
+
+@dataclass(frozen=True)
+class Manoeuvre:
+    """A manoeuvre; every amplitude is multiplied by the per-sample ``scale`` of a run.
+
+    Attributes
+    ----------
+    name, kind
+        Name from the case file; kind from :data:`MANOEUVRE_KINDS`.
+    duration_s
+        Simulated time. [s]
+    start_s
+        When the step, ramp or push begins. [s]
+    speed_m_s, yaw_rate_rad_s
+        Commanded speed and yaw-rate change. [m/s, rad/s]
+    ramp_time_s
+        Time to reach ``speed_m_s`` (speed ramp). [s]
+    push_force_n, push_height_m, push_duration_s
+        Horizontal force on the body, its height above the axle, its duration. [N, m, s]
+    initial_pitch_rad
+        Initial lean (tilted start). [rad]
+    """
+
+    name: str
+    kind: str
+    duration_s: float
+    start_s: float = 0.0
+    speed_m_s: float = 0.0
+    yaw_rate_rad_s: float = 0.0
+    ramp_time_s: float = 0.0
+    push_force_n: float = 0.0
+    push_height_m: float = 0.0
+    push_duration_s: float = 0.0
+    initial_pitch_rad: float = 0.0
+
+    def reference(self, t: float, scale: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Speed and yaw-rate references at time ``t`` [s], each ``(n,)``."""
+        if t < self.start_s:
+            frac = 0.0
+        elif self.kind == "speed_ramp" and self.ramp_time_s > 0:
+            frac = min(1.0, (t - self.start_s) / self.ramp_time_s)
+        else:
+            frac = 1.0
+        v = self.speed_m_s * frac * scale if self.kind != "yaw_rate_step" else 0.0 * scale
+        w = (
+            self.yaw_rate_rad_s * frac * scale
+            if self.kind in ("yaw_rate_step", "speed_and_yaw_rate_step")
+            else 0.0 * scale
+        )
+        return v, w
+
+    def push(self, t: float, scale: np.ndarray):
+        """``(force, height)`` acting at time ``t``, or ``None``."""
+        if self.kind != "push" or not (self.start_s <= t < self.start_s + self.push_duration_s):
+            return None
+        return self.push_force_n * scale, np.full_like(scale, self.push_height_m)
+
+    @property
+    def steps_speed(self) -> bool:
+        return self.kind in ("speed_step", "speed_ramp", "speed_and_yaw_rate_step") and self.speed_m_s != 0
+
+    @property
+    def steps_yaw_rate(self) -> bool:
+        return self.kind in ("yaw_rate_step", "speed_and_yaw_rate_step") and self.yaw_rate_rad_s != 0
+
+
+@dataclass(frozen=True)
+class Envelope:
+    """Per controller step, min / median / max across samples, shape ``(m, q)`` each."""
+
+    t: np.ndarray
+    quantities: tuple[str, ...]
+    units: tuple[str, ...]
+    low: np.ndarray
+    median: np.ndarray
+    high: np.ndarray
+
+
+@dataclass(frozen=True)
+class Trace:
+    """Full record of one sample at every controller step."""
+
+    t: np.ndarray
+    state: np.ndarray
+    command: np.ndarray
+    torque: np.ndarray
+    current: np.ndarray
+    speed_ref: np.ndarray
+    yaw_rate_ref: np.ndarray
+
+
+@dataclass(frozen=True)
+class SimResult:
+    """Metrics of every sample (arrays ``(n,)`` or ``(n, 2)`` for per-wheel values).
+
+    ``metrics`` maps a metric name to its values; response metrics (rise,
+    overshoot) appear only when the manoeuvre steps that quantity.
+    """
+
+    manoeuvre: str
+    metrics: dict[str, np.ndarray]
+    fell: np.ndarray
+    fall_time_s: np.ndarray
+    envelope: Envelope | None
+    trace: Trace | None
+
+
+def _spin(plant: Plant, x: np.ndarray) -> np.ndarray:
+    v, w, thd = x[:, SPEED], x[:, YAW_RATE], x[:, PITCH_RATE]
+    return np.stack([(v - plant.d * w) / plant.r - thd, (v + plant.d * w) / plant.r - thd], axis=-1)
+
+
+class _Response:
+    """Online rise / overshoot / settling statistics of one response channel."""
+
+    def __init__(self, n: int, band_floor: float):
+        self.band_floor = band_floor
+        self.t10 = np.full(n, np.inf)
+        self.t90 = np.full(n, np.inf)
+        self.extreme = np.zeros(n)
+        self.last_out = np.zeros(n)
+        self.final_error = np.zeros(n)
+
+    def update(self, t, y, target, start, live):
+        sgn = np.sign(target)
+        frac = np.where(target != 0, y / np.where(target != 0, target, 1.0), 0.0)
+        after = t >= start
+        self.t10 = np.where(live & after & (frac >= 0.1) & np.isinf(self.t10), t - start, self.t10)
+        self.t90 = np.where(live & after & (frac >= 0.9) & np.isinf(self.t90), t - start, self.t90)
+        self.extreme = np.where(live & after, np.maximum(self.extreme, sgn * y), self.extreme)
+        band = np.maximum(0.02 * np.abs(target), self.band_floor)
+        outside = np.abs(y - target) > band
+        self.last_out = np.where(live & outside, np.maximum(t - start, 0.0), self.last_out)
+        self.final_error = np.where(live, np.abs(y - target), self.final_error)
+        self.band = band
+
+    def settling(self) -> np.ndarray:
+        """Time after the start of the last exit from the band; ``inf`` if outside it at the end."""
+        return np.where(self.final_error > self.band, np.inf, self.last_out)
+
+
+def simulate(
+    plant: Plant,
+    K: np.ndarray,
+    manoeuvre: Manoeuvre,
+    controller: Controller,
+    *,
+    scale: np.ndarray | None = None,
+    envelope: bool = False,
+    trace: bool = False,
+    stop_at_current_limit: bool = False,
+) -> SimResult:
+    """Simulate ``n`` vehicles through one manoeuvre.
+
+    Parameters
+    ----------
+    plant
+        Batch of ``n`` vehicles.
+    K
+        Gain ``(2, 4)``; ``u = -K (x - x_ref)`` plus trim when enabled.
+    manoeuvre, controller
+        What is commanded and how the controller runs.
+    scale
+        Per-sample amplitude factor ``(n,)`` (default 1): multiplies the
+        manoeuvre's speed, yaw rate, push force and initial pitch.
+    envelope, trace
+        Record min / median / max across samples per controller step; record
+        every step of every sample (use with small ``n`` only).
+    stop_at_current_limit
+        Stop integrating a sample once it reaches its current limit (marked in
+        ``metrics["reached_current_limit"]``); used by the survivable-step search.
+    """
+    n = plant.n
+    scale = np.ones(n) if scale is None else np.broadcast_to(np.asarray(scale, dtype=float), (n,)).copy()
+    T = controller.sample_period_s
+    d = controller.latency_s
+    steps = int(round(manoeuvre.duration_s / T))
+    sub = controller.substeps
+    seg = [(d, max(1, int(np.ceil(sub * d / T))))] if d > 0 else []
+    seg.append((T - d, max(1, sub - (seg[0][1] if seg else 0))))
+
+    x = np.zeros((n, 7))
+    x[:, PITCH] = manoeuvre.initial_pitch_rad * scale if manoeuvre.kind == "tilted_start" else 0.0
+    fell = np.zeros(n, dtype=bool)
+    stopped = np.zeros(n, dtype=bool)
+    fall_time = np.full(n, np.inf)
+    u_prev = np.zeros((n, 2))
+    peak_torque = np.zeros((n, 2))
+    peak_command = np.zeros((n, 2))
+    peak_current = np.zeros((n, 2))
+    at_current = np.zeros((n, 2))
+    at_voltage = np.zeros((n, 2))
+    peak_pitch = np.abs(x[:, PITCH])
+    peak_pitch_rate = np.zeros(n)
+    speed_resp = _Response(n, 0.02)
+    yaw_resp = _Response(n, 0.02)
+    counted = 0
+    env_rows: list[np.ndarray] = []
+    rec: dict[str, list] = {k: [] for k in ("t", "state", "command", "torque", "current", "v", "w")}
+    idx = np.array(REDUCED_INDEX)
+
+    def measure(xx, cmd, live):
+        """Drive output at ``xx``; updates the running peaks; returns the output."""
+        nonlocal counted
+        out = drive_output(plant, cmd, _spin(plant, xx))
+        lv = live[:, None]
+        np.maximum(peak_torque, np.where(lv, np.abs(out["torque"]), 0.0), out=peak_torque)
+        np.maximum(peak_current, np.where(lv, np.abs(out["current"]), 0.0), out=peak_current)
+        at_current[:] += lv & out["current_limited"]
+        at_voltage[:] += lv & out["voltage_limited"]
+        counted += 1
+        np.maximum(peak_pitch, np.where(live, np.abs(xx[:, PITCH]), 0.0), out=peak_pitch)
+        np.maximum(peak_pitch_rate, np.where(live, np.abs(xx[:, PITCH_RATE]), 0.0), out=peak_pitch_rate)
+        return out
+
+    final_v, final_w = manoeuvre.reference(manoeuvre.duration_s + 1.0, scale)
+    ktn = plant.kt_nominal[:, None]
+    shift = reference_shift(plant) if controller.trim else None
+    for k in range(steps):
+        t = k * T
+        vref, wref = manoeuvre.reference(t, scale)
+        xref = np.zeros((n, 4))
+        xref[:, 0], xref[:, 1] = vref, wref
+        u = -(x[:, idx] - xref) @ K.T
+        if controller.trim:
+            u = u + trim_torque(plant, vref, wref, shift=shift)
+        live = ~fell & ~stopped
+        livef = live[:, None].astype(float)
+        np.maximum(peak_command, np.where(live[:, None], np.abs(u), 0.0), out=peak_command)
+        speed_resp.update(t, x[:, SPEED], final_v, manoeuvre.start_s, live)
+        yaw_resp.update(t, x[:, YAW_RATE], final_w, manoeuvre.start_s, live)
+        tt = t
+        for j, ((length, m), cmd) in enumerate(zip(seg, ([u_prev, u] if d > 0 else [u]))):
+            h = length / m
+            wanted = cmd / ktn
+            for _ in range(m):
+                push = manoeuvre.push(tt, scale)
+                out = measure(x, cmd, live)
+                if j == 0 and _ == 0:
+                    if envelope:
+                        row = np.stack(
+                            [
+                                x[:, SPEED],
+                                x[:, YAW_RATE],
+                                x[:, PITCH],
+                                out["torque"][:, 0],
+                                out["torque"][:, 1],
+                            ],
+                            -1,
+                        )
+                        env_rows.append(np.stack([row.min(0), np.median(row, 0), row.max(0)]))
+                    if trace:
+                        for key, val in (
+                            ("t", t),
+                            ("state", x.copy()),
+                            ("command", u.copy()),
+                            ("torque", out["torque"]),
+                            ("current", out["current"]),
+                            ("v", vref),
+                            ("w", wref),
+                        ):
+                            rec[key].append(val)
+
+                def f(xx, wanted=wanted, push=push, livef=livef):
+                    tau = delivered_torque(plant, wanted, _spin(plant, xx))
+                    return derivative(plant, xx, tau, push) * livef
+
+                k1 = derivative(plant, x, out["torque"], push) * livef
+                k2 = f(x + 0.5 * h * k1)
+                k3 = f(x + 0.5 * h * k2)
+                k4 = f(x + h * k3)
+                x = x + (h / 6.0) * (k1 + 2.0 * k2 + 2.0 * k3 + k4)
+                tt += h
+        u_prev = u
+        newly = ~fell & (np.abs(x[:, PITCH]) > controller.fall_angle_rad)
+        fall_time[newly] = (k + 1) * T
+        fell |= newly
+        if stop_at_current_limit:
+            stopped |= at_current.max(axis=1) > 0
+        if (fell | stopped).all():
+            break
+    live = ~fell & ~stopped
+    speed_resp.update(steps * T, x[:, SPEED], final_v, manoeuvre.start_s, live)
+    yaw_resp.update(steps * T, x[:, YAW_RATE], final_w, manoeuvre.start_s, live)
+    metrics = {
+        "peak_torque_n_m": peak_torque,
+        "peak_command_n_m": peak_command,
+        "peak_current_a": peak_current,
+        "current_limit_fraction": at_current / max(counted, 1),
+        "voltage_limit_fraction": at_voltage / max(counted, 1),
+        "peak_pitch_rad": peak_pitch,
+        "peak_pitch_rate_rad_s": peak_pitch_rate,
+        "reached_current_limit": at_current.max(axis=1) > 0,
+        "speed_settling_time_s": np.where(fell, np.inf, speed_resp.settling()),
+        "speed_final_error_m_s": np.where(fell, np.inf, speed_resp.final_error),
+        "yaw_rate_settling_time_s": np.where(fell, np.inf, yaw_resp.settling()),
+        "yaw_rate_final_error_rad_s": np.where(fell, np.inf, yaw_resp.final_error),
+    }
+    for resp, key, on, target in (
+        (speed_resp, "speed", manoeuvre.steps_speed, final_v),
+        (yaw_resp, "yaw_rate", manoeuvre.steps_yaw_rate, final_w),
+    ):
+        if on:
+            rise = np.where(
+                np.isfinite(resp.t90), resp.t90 - np.where(np.isfinite(resp.t10), resp.t10, 0.0), np.inf
+            )
+            metrics[f"{key}_rise_time_s"] = np.where(fell, np.inf, rise)
+            over = np.where(target != 0, resp.extreme / np.abs(np.where(target != 0, target, 1.0)) - 1.0, 0.0)
+            metrics[f"{key}_overshoot"] = np.where(fell, np.inf, np.maximum(over, 0.0))
+    env = None
+    if envelope and env_rows:
+        arr = np.stack(env_rows)  # (m, 3, q)
+        env = Envelope(
+            t=np.arange(arr.shape[0]) * T,
+            quantities=ENVELOPE_QUANTITIES,
+            units=ENVELOPE_UNITS,
+            low=arr[:, 0],
+            median=arr[:, 1],
+            high=arr[:, 2],
+        )
+    tr = None
+    if trace and rec["t"]:
+        tr = Trace(
+            t=np.array(rec["t"]),
+            state=np.stack(rec["state"], 1),
+            command=np.stack(rec["command"], 1),
+            torque=np.stack(rec["torque"], 1),
+            current=np.stack(rec["current"], 1),
+            speed_ref=np.stack(rec["v"], 1),
+            yaw_rate_ref=np.stack(rec["w"], 1),
+        )
+    return SimResult(
+        manoeuvre=manoeuvre.name, metrics=metrics, fell=fell, fall_time_s=fall_time, envelope=env, trace=tr
+    )
+
+
+def survivable_step(
+    plant: Plant,
+    K: np.ndarray,
+    manoeuvre: Manoeuvre,
+    controller: Controller,
+    *,
+    upper: float,
+    rounds: int = 4,
+    points_per_round: int = 7,
+) -> dict[str, np.ndarray]:
+    """Largest amplitude of a manoeuvre each model survives, by bracketing across the batch.
+
+    A run is survived when the model does not fall and never reaches its
+    current limit.  Each round simulates ``points_per_round`` amplitudes,
+    evenly spaced inside every model's current bracket, for all models at
+    once (one batch of ``n * points_per_round`` runs); the bracket shrinks to
+    the interval below the first failing amplitude, so the bracket width
+    after ``r`` rounds is ``upper / (points_per_round + 1)^r``.  If the
+    outcome were not monotonic in the amplitude, the result is the
+    conservative (smaller) one.
+
+    The manoeuvre is scaled by a per-sample factor; ``upper`` bounds that
+    factor (e.g. the drive's no-load speed over the manoeuvre's amplitude).
+
+    Returns
+    -------
+    dict
+        ``"survived"``: largest amplitude known to be survived ``(n,)``, in
+        the manoeuvre's unit; ``"failed"``: smallest amplitude known to fail
+        (``upper`` times the amplitude if none failed); ``"bounded"``: True
+        where ``upper`` itself was survived.
+    """
+    n = plant.n
+    m = points_per_round
+    lo = np.zeros(n)
+    hi = np.full(n, float(upper))
+    top_ok = _survives(plant, K, manoeuvre, controller, hi)
+    rep = plant.take(np.repeat(np.arange(n), m))
+    frac = np.arange(1, m + 1) / (m + 1)
+    for _ in range(rounds):
+        amps = lo[:, None] + (hi - lo)[:, None] * frac[None, :]
+        ok = _survives(rep, K, manoeuvre, controller, amps.reshape(-1)).reshape(n, m)
+        first_fail = np.where(~ok.all(axis=1), np.argmin(ok, axis=1), m)
+        new_lo = np.where(first_fail > 0, amps[np.arange(n), np.maximum(first_fail - 1, 0)], lo)
+        new_hi = np.where(first_fail < m, amps[np.arange(n), np.minimum(first_fail, m - 1)], hi)
+        lo = np.where(top_ok, hi, new_lo)
+        hi = np.where(top_ok, hi, new_hi)
+    amp = {
+        "speed_step": manoeuvre.speed_m_s,
+        "speed_ramp": manoeuvre.speed_m_s,
+        "speed_and_yaw_rate_step": manoeuvre.speed_m_s,
+        "yaw_rate_step": manoeuvre.yaw_rate_rad_s,
+        "push": manoeuvre.push_force_n,
+        "tilted_start": manoeuvre.initial_pitch_rad,
+    }[manoeuvre.kind]
+    return {"survived": lo * amp, "failed": hi * amp, "bounded": top_ok}
+
+
+def _survives(plant, K, manoeuvre, controller, scale) -> np.ndarray:
+    res = simulate(plant, K, manoeuvre, controller, scale=scale, stop_at_current_limit=True)
+    return ~res.fell & ~res.metrics["reached_current_limit"]

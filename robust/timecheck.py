@@ -1,0 +1,306 @@
+"""The time-domain check: gain sets through the case's manoeuvres on the nonlinear model.
+
+For each gain set and manoeuvre, the corners of the box plus the first
+``study.simulation_samples`` Monte Carlo samples are simulated at once; the
+worst of each metric is reported with where it is, with response envelopes
+and the worst sample's trace for the dossier.  The survivable speed step and
+yaw-rate step of every model are found by bisection across the batch.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from dataclasses import dataclass
+
+import numpy as np
+
+from robust.case import Case, Study
+from robust.gains import GainSet
+from robust.simulate import Envelope, Manoeuvre, Trace, simulate, survivable_step
+from robust.uncertainty import corners, monte_carlo
+
+Progress = Callable[[str], None]
+
+# metric name -> (unit, how to reduce per-wheel values, kind)
+TIME_METRICS = {
+    "peak_torque_n_m": ("N m", "min"),
+    "peak_current_a": ("A", "min"),
+    "current_limit_fraction": ("-", "min"),
+    "voltage_limit_fraction": ("-", "min"),
+    "peak_pitch_deg": ("deg", "min"),
+    "peak_pitch_rate_deg_s": ("deg/s", "min"),
+    "speed_settling_time_s": ("s", "min"),
+    "speed_rise_time_s": ("s", "min"),
+    "speed_overshoot": ("-", "min"),
+    "speed_final_error_m_s": ("m/s", "min"),
+    "yaw_rate_settling_time_s": ("s", "min"),
+    "yaw_rate_rise_time_s": ("s", "min"),
+    "yaw_rate_overshoot": ("-", "min"),
+    "yaw_rate_final_error_rad_s": ("rad/s", "min"),
+}
+
+
+@dataclass(frozen=True)
+class TimeWorst:
+    """Worst (largest) value of a time-domain metric over the simulated models."""
+
+    name: str
+    unit: str
+    value: float
+    median: float
+    at: dict[str, float]
+
+
+@dataclass(frozen=True)
+class ManoeuvreResult:
+    """One manoeuvre for one gain set."""
+
+    name: str
+    kind: str
+    models: int
+    fell: int
+    first_fall_s: float
+    worst: tuple[TimeWorst, ...]
+    envelope: Envelope
+    worst_trace: Trace
+    worst_at: dict[str, float]
+
+
+@dataclass(frozen=True)
+class Survivable:
+    """Largest survivable step per model (no fall, current limit never reached)."""
+
+    kind: str
+    unit: str
+    points: np.ndarray
+    survived: np.ndarray
+    bounded: np.ndarray
+    worst: float
+    worst_at: dict[str, float]
+    upper: float
+
+
+@dataclass(frozen=True)
+class TimeVerdict:
+    """One time-domain requirement; ``margin < 0`` means failed."""
+
+    requirement: str
+    threshold: float
+    worst: float
+    unit: str
+    passed: bool
+    margin: float
+    failures: int
+    models: int
+
+
+@dataclass(frozen=True)
+class GainTimeCheck:
+    gain: GainSet
+    manoeuvres: tuple[ManoeuvreResult, ...]
+    survivable: tuple[Survivable, ...]
+    verdicts: tuple[TimeVerdict, ...]
+    passed: bool
+
+
+@dataclass(frozen=True)
+class TimeCheckResult:
+    title: str
+    case_sha256: str
+    study: Study
+    sample_period_s: float
+    latency_s: float
+    fall_angle_deg: float
+    parameter_names: tuple[str, ...]
+    models: int
+    gains: tuple[GainTimeCheck, ...]
+    passed: bool
+
+
+def simulation_points(case: Case, study: Study) -> np.ndarray:
+    """Corners plus the first ``simulation_samples`` Monte Carlo samples of the study's stream."""
+    pts = [corners(case.box)]
+    if study.simulation_samples and case.box.ranges:
+        pts.append(monte_carlo(case.box, study.simulation_samples, study.seed))
+    return np.concatenate(pts)
+
+
+def _reduce(values: np.ndarray) -> np.ndarray:
+    return values.max(axis=1) if values.ndim == 2 else values
+
+
+def _at(names, point):
+    return {n: float(v) for n, v in zip(names, point)}
+
+
+def survivable_manoeuvres(case: Case) -> tuple[tuple[Manoeuvre, float], ...]:
+    """The speed-step and yaw-rate-step probes and their amplitude bounds (the drive's no-load speed)."""
+    v = case.vehicle
+    no_load_wheel = v.drive.supply_v / v.drive.back_emf_v_s_per_rad
+    speed = Manoeuvre("survivable speed step", "speed_step", 3.0, start_s=0.1, speed_m_s=1.0)
+    yaw = Manoeuvre("survivable yaw-rate step", "yaw_rate_step", 2.0, start_s=0.1, yaw_rate_rad_s=1.0)
+    return (
+        (speed, no_load_wheel * v.wheel.radius_m),
+        (yaw, no_load_wheel * v.wheel.radius_m / v.wheel.half_track_m),
+    )
+
+
+def time_check_gain(
+    case: Case, gain: GainSet, points: np.ndarray, *, progress: Progress | None = None
+) -> GainTimeCheck:
+    """Simulate one gain set through every manoeuvre and find its survivable steps."""
+    say = progress or (lambda _m: None)
+    names = case.box.names
+    plant = case.box.plant(points)
+    ctl = case.controller
+    results = []
+    all_metrics: dict[str, list[np.ndarray]] = {}
+    for man in case.manoeuvres:
+        say(f"{gain.name}: simulating '{man.name}' on {plant.n} models")
+        r = simulate(plant, gain.K, man, ctl, envelope=True)
+        vals = dict(r.metrics)
+        vals["peak_pitch_deg"] = np.degrees(vals.pop("peak_pitch_rad"))
+        vals["peak_pitch_rate_deg_s"] = np.degrees(vals.pop("peak_pitch_rate_rad_s"))
+        vals.pop("peak_command_n_m")
+        vals.pop("reached_current_limit")
+        worst = []
+        for key, (unit, _kind) in TIME_METRICS.items():
+            if key not in vals:
+                continue
+            v = _reduce(vals[key])
+            i = int(np.argmax(v))
+            worst.append(TimeWorst(key, unit, float(v[i]), float(np.median(v)), _at(names, points[i])))
+            all_metrics.setdefault(key, []).append(v)
+            if key.startswith("speed_settling") and not man.steps_speed:
+                all_metrics[key].pop()
+            if key.startswith("yaw_rate_settling") and not man.steps_yaw_rate:
+                all_metrics[key].pop()
+        badness = np.where(r.fell, np.inf, vals["peak_pitch_deg"])
+        iw = int(np.argmax(np.where(r.fell, -r.fall_time_s, badness)) if r.fell.any() else np.argmax(badness))
+        tr = simulate(plant.take(slice(iw, iw + 1)), gain.K, man, ctl, trace=True).trace
+        fell_any = bool(r.fell.any())
+        all_metrics.setdefault("fell", []).append(r.fell.astype(float))
+        results.append(
+            ManoeuvreResult(
+                name=man.name,
+                kind=man.kind,
+                models=plant.n,
+                fell=int(r.fell.sum()),
+                first_fall_s=float(r.fall_time_s.min()) if fell_any else float("inf"),
+                worst=tuple(worst),
+                envelope=r.envelope,
+                worst_trace=tr,
+                worst_at=_at(names, points[iw]),
+            )
+        )
+    surv = []
+    for man, upper in survivable_manoeuvres(case):
+        say(f"{gain.name}: bisecting the {man.name} on {plant.n} models")
+        s = survivable_step(plant, gain.K, man, ctl, upper=upper)
+        i = int(np.argmin(s["survived"]))
+        unit = "m/s" if man.kind == "speed_step" else "rad/s"
+        surv.append(
+            Survivable(
+                kind=man.kind,
+                unit=unit,
+                points=points,
+                survived=s["survived"],
+                bounded=s["bounded"],
+                worst=float(s["survived"][i]),
+                worst_at=_at(names, points[i]),
+                upper=float(upper),
+            )
+        )
+    verdicts = []
+    req = case.requirements
+    checks = (
+        ("max_wheel_torque_n_m", "peak_torque_n_m", "N m", "max"),
+        ("max_pitch_deg", "peak_pitch_deg", "deg", "max"),
+        ("max_settling_time_s", None, "s", "max"),
+    )
+    for key, metric, unit, _kind in checks:
+        if key not in req:
+            continue
+        if metric is None:
+            groups = all_metrics.get("speed_settling_time_s", []) + all_metrics.get(
+                "yaw_rate_settling_time_s", []
+            )
+        else:
+            groups = all_metrics.get(metric, [])
+        if not groups:
+            continue
+        v = np.concatenate(groups)
+        worst = float(v.max())
+        verdicts.append(
+            TimeVerdict(
+                key,
+                req[key],
+                worst,
+                unit,
+                worst <= req[key],
+                req[key] - worst,
+                int(np.sum(v > req[key])),
+                v.size,
+            )
+        )
+    for key, s in (
+        ("min_survivable_speed_step_m_s", surv[0]),
+        ("min_survivable_yaw_rate_step_rad_s", surv[1]),
+    ):
+        if key in req:
+            verdicts.append(
+                TimeVerdict(
+                    key,
+                    req[key],
+                    s.worst,
+                    s.unit,
+                    s.worst >= req[key],
+                    s.worst - req[key],
+                    int(np.sum(s.survived < req[key])),
+                    s.survived.size,
+                )
+            )
+    if case.manoeuvres:
+        falls = np.concatenate(all_metrics["fell"])
+        verdicts.append(
+            TimeVerdict(
+                "no_fall_in_any_manoeuvre",
+                0.0,
+                float(falls.sum()),
+                "models",
+                not falls.any(),
+                -float(falls.sum()),
+                int(falls.sum()),
+                falls.size,
+            )
+        )
+    return GainTimeCheck(
+        gain=gain,
+        manoeuvres=tuple(results),
+        survivable=tuple(surv),
+        verdicts=tuple(verdicts),
+        passed=all(v.passed for v in verdicts),
+    )
+
+
+def run_time_check(
+    case: Case, gains: list[GainSet], *, study: Study | None = None, progress: Progress | None = None
+) -> TimeCheckResult:
+    """Time-domain check of every gain set."""
+    study = study or case.study
+    if not gains:
+        raise ValueError("no gain set to simulate: add [gains.NAME] to the case or pass a gain file")
+    points = simulation_points(case, study)
+    checks = tuple(time_check_gain(case, g, points, progress=progress) for g in gains)
+    return TimeCheckResult(
+        title=case.title,
+        case_sha256=case.sha256,
+        study=study,
+        sample_period_s=case.controller.sample_period_s,
+        latency_s=case.controller.latency_s,
+        fall_angle_deg=float(np.degrees(case.controller.fall_angle_rad)),
+        parameter_names=case.box.names,
+        models=int(points.shape[0]),
+        gains=checks,
+        passed=all(c.passed for c in checks),
+    )
