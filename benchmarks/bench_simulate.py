@@ -43,8 +43,14 @@ def reference(plant1, K):
     one = np.ones(1)
 
     def spin(y):
-        return np.array([[(y[3] - plant1.d[0] * y[4]) / plant1.r[0] - y[6],
-                          (y[3] + plant1.d[0] * y[4]) / plant1.r[0] - y[6]]])
+        return np.array(
+            [
+                [
+                    (y[3] - plant1.d[0] * y[4]) / plant1.r[0] - y[6],
+                    (y[3] + plant1.d[0] * y[4]) / plant1.r[0] - y[6],
+                ]
+            ]
+        )
 
     for k in range(int(round(MAN.duration_s / T))):
         v, w = MAN.reference(k * T, one)
@@ -56,7 +62,9 @@ def reference(plant1, K):
         sol = solve_ivp(f, (k * T, (k + 1) * T), x, method="RK45", rtol=1e-8, atol=1e-10, dense_output=True)
         for tt in np.linspace(k * T, (k + 1) * T, CTL.substeps + 1)[:-1]:
             y = sol.sol(tt)
-            peak_torque = max(peak_torque, float(np.abs(drive_output(plant1, u[None, :], spin(y))["torque"]).max()))
+            peak_torque = max(
+                peak_torque, float(np.abs(drive_output(plant1, u[None, :], spin(y))["torque"]).max())
+            )
             peak_pitch = max(peak_pitch, abs(float(y[5])))
         x = sol.y[:, -1]
     return peak_pitch, peak_torque
@@ -70,8 +78,10 @@ def big_child() -> None:
     res = simulate(plant, K, MAN, CTL, envelope=True)
     dt = time.perf_counter() - t
     peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
-    print(f"  10,000 models x 5 s at 200 Hz: {dt:.1f} s ({10_000 / dt:,.0f} models/s); "
-          f"{int(res.fell.sum())} fell; peak resident memory {peak:.0f} MiB (target < 2048 MiB)")
+    print(
+        f"  10,000 models x 5 s at 200 Hz: {dt:.1f} s ({10_000 / dt:,.0f} models/s); "
+        f"{int(res.fell.sum())} fell; peak resident memory {peak:.0f} MiB (target < 2048 MiB)"
+    )
 
 
 def main() -> None:
@@ -95,12 +105,18 @@ def main() -> None:
     refs = [reference(plant.take(slice(i, i + 1)), K) for i in range(n_ref)]
     t_ref = time.perf_counter() - t
     d_pitch = max(abs(res.metrics["peak_pitch_rad"][i] - refs[i][0]) / refs[i][0] for i in range(n_ref))
-    d_torque = max(abs(res.metrics["peak_torque_n_m"][i].max() - refs[i][1]) / refs[i][1] for i in range(n_ref))
+    d_torque = max(
+        abs(res.metrics["peak_torque_n_m"][i].max() - refs[i][1]) / refs[i][1] for i in range(n_ref)
+    )
     r_ours, r_ref = n_batch / t_ours, n_ref / t_ref
     print("1. Batched RK4 vs per-sample solve_ivp (RK45, rtol 1e-8), 5 s speed step at 200 Hz")
-    print(f"  solve_ivp loop {r_ref:8.2f} models/s ({n_ref} models); ours {r_ours:8.1f} models/s ({n_batch} models)")
-    print(f"  ratio {r_ours / r_ref:,.0f}x (target >= 50x); largest relative difference: "
-          f"peak pitch {d_pitch:.1e}, peak torque {d_torque:.1e} (target 1e-3)")
+    print(
+        f"  solve_ivp loop {r_ref:8.2f} models/s ({n_ref} models); ours {r_ours:8.1f} models/s ({n_batch} models)"
+    )
+    print(
+        f"  ratio {r_ours / r_ref:,.0f}x (target >= 50x); largest relative difference: "
+        f"peak pitch {d_pitch:.1e}, peak torque {d_torque:.1e} (target 1e-3)"
+    )
     if not args.quick:
         print("2. Memory")
         subprocess.run([sys.executable, __file__, "--big-child"], check=True)

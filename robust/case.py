@@ -90,6 +90,7 @@ class Case:
     gains: tuple[GainSpec, ...] = ()
     controller: Controller = field(default_factory=Controller)
     manoeuvres: tuple[Manoeuvre, ...] = ()
+    synthesis: dict = field(default_factory=dict)
 
     @property
     def vehicle(self) -> Vehicle:
@@ -109,7 +110,32 @@ TOP_KEYS = (
     "gains",
     "controller",
     "manoeuvres",
+    "synthesis",
 )
+SYNTHESIS_KEYS = {
+    "name": ("text", None),
+    "route": ("text", None),
+    "lyapunov": ("text", None),
+    "objective": ("text", None),
+    "min_decay_rate_per_s": ("1/s", (0.0, None)),
+    "min_damping_ratio": ("-", (0.0, 0.99)),
+    "max_natural_frequency_rad_s": ("rad/s", (0.0, None)),
+    "torque_limit_n_m": ("N m", (0.0, None)),
+    "speed_step_m_s": ("m/s", (0.0, None)),
+    "yaw_rate_step_rad_s": ("rad/s", (0.0, None)),
+    "initial_pitch_deg": ("deg", (0.0, 45.0)),
+    "hull_margin": ("-", (0.0, 1.0)),
+    "max_speed_error_m_s": ("m/s", (0.0, None)),
+    "max_yaw_rate_error_rad_s": ("rad/s", (0.0, None)),
+    "max_pitch_deg": ("deg", (0.0, None)),
+    "max_pitch_rate_deg_s": ("deg/s", (0.0, None)),
+    "max_torque_n_m": ("N m", (0.0, None)),
+}
+SYNTHESIS_CHOICES = {
+    "route": ("moment_box", "sampled_hull"),
+    "lyapunov": ("common", "parameter_dependent"),
+    "objective": ("gain", "decay", "cost"),
+}
 REQUIREMENT_UNITS = {
     "min_decay_rate_per_s": ("1/s", 0.0, None),
     "min_damping_ratio": ("-", -1.0, 1.0),
@@ -353,7 +379,58 @@ def parse_case(text: str, *, source: str = "<text>") -> Case:
         gains=_gains(doc),
         controller=(ctl := _controller(doc)),
         manoeuvres=_manoeuvres(doc, vehicle, ctl),
+        synthesis=_synthesis(doc),
     )
+
+
+def _synthesis(doc: dict) -> dict:
+    st = _table(doc, "synthesis", "", required=False)
+    _check_keys(st, list(SYNTHESIS_KEYS), "synthesis")
+    out: dict = {}
+    for key in st:
+        unit, bounds = SYNTHESIS_KEYS[key]
+        if unit == "text":
+            v = _text(st, key, "synthesis")
+            choices = SYNTHESIS_CHOICES.get(key)
+            if choices and v not in choices:
+                raise CaseError(f"'synthesis.{key}': expected one of {', '.join(choices)}, got {v!r}")
+            if key == "name" and not v.replace("_", "").replace("-", "").isalnum():
+                raise CaseError(f"'synthesis.name': expected letters, digits, '-' or '_', got {v!r}")
+            out[key] = v
+        else:
+            v = _number(st, key, "synthesis", unit)
+            lo, hi = bounds
+            if v <= lo or (hi is not None and v > hi):
+                want = f"> {lo:g}" if hi is None else f"in ({lo:g}, {hi:g}]"
+                if key == "min_decay_rate_per_s" and v == 0:
+                    out[key] = v
+                    continue
+                raise CaseError(f"'synthesis.{key}': expected {want} [{unit}], got {v:g}")
+            out[key] = v
+    cost_keys = [
+        k
+        for k in (
+            "max_speed_error_m_s",
+            "max_yaw_rate_error_rad_s",
+            "max_pitch_deg",
+            "max_pitch_rate_deg_s",
+            "max_torque_n_m",
+        )
+        if k in out
+    ]
+    if out.get("objective") == "cost" and len(cost_keys) != 5:
+        raise CaseError(
+            "'synthesis': the cost objective needs the Bryson weights max_speed_error_m_s, "
+            "max_yaw_rate_error_rad_s, max_pitch_deg, max_pitch_rate_deg_s and max_torque_n_m"
+        )
+    if "torque_limit_n_m" in out and not any(
+        k in out for k in ("speed_step_m_s", "yaw_rate_step_rad_s", "initial_pitch_deg")
+    ):
+        raise CaseError(
+            "'synthesis.torque_limit_n_m': say which motions it must cover with speed_step_m_s, "
+            "yaw_rate_step_rad_s and/or initial_pitch_deg"
+        )
+    return out
 
 
 def _requirements(doc: dict) -> dict[str, float]:

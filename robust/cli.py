@@ -83,6 +83,36 @@ def _simulate(args: argparse.Namespace) -> int:
     return 0 if result.passed else 1
 
 
+def _synthesize(args: argparse.Namespace) -> int:
+    from pathlib import Path
+
+    from robust.design import design
+    from robust.gains import write_gain_file
+    from robust.report.jsonout import dumps
+    from robust.report.text import design_text
+    from robust.synthesis.lmi import Infeasible
+
+    case = load_case(args.case)
+    if not case.box.ranges:
+        raise CaseError(f"{args.case}: no [ranges]: nothing to make robust (use a nominal design)")
+    others = _gain_sets(case, args.gain, None) if args.gain or case.gains else []
+    overrides = {
+        "route": args.route,
+        "lyapunov": args.lyapunov,
+        "objective": args.objective,
+        "name": args.name,
+    }
+    try:
+        d = design(case, overrides=overrides, progress=_progress(args.quiet), compare_with=others)
+    except Infeasible as exc:
+        raise CaseError(f"synthesis infeasible: {exc}") from None
+    out = Path(args.out) if args.out else Path("gains") / f"{d.gain.name}.toml"
+    write_gain_file(out, d.gain)
+    print(f"robust: gain written to {out}", file=sys.stderr)
+    sys.stdout.write(dumps(d) if args.json else design_text(d))
+    return 0 if d.check.gains[0].passed else 1
+
+
 def _nonneg_int(text: str) -> int:
     v = _seed(text)
     return v
@@ -164,6 +194,27 @@ def build_parser() -> argparse.ArgumentParser:
         "--json", action="store_true", help="print JSON instead of text (includes envelopes and traces)"
     )
     p.set_defaults(func=_simulate)
+
+    p = sub.add_parser(
+        "synthesize",
+        help="one LMI gain for the whole parameter box, with a certificate; writes a gain file and checks it",
+    )
+    p.add_argument("case", help="case file (TOML)")
+    p.add_argument(
+        "--route", choices=("moment_box", "sampled_hull"), help="polytope route (default: case or moment_box)"
+    )
+    p.add_argument(
+        "--lyapunov", choices=("common", "parameter_dependent"), help="Lyapunov matrix (default common)"
+    )
+    p.add_argument("--objective", choices=("gain", "decay", "cost"), help="what to optimise (default gain)")
+    p.add_argument("--name", help="name of the new gain set (default: case or 'lmi')")
+    p.add_argument("--out", metavar="PATH", help="gain file to write (default gains/NAME.toml)")
+    p.add_argument(
+        "--gain", action="append", metavar="NAME", help="case gain sets to compare with (default all)"
+    )
+    p.add_argument("--quiet", action="store_true", help="no progress messages")
+    p.add_argument("--json", action="store_true", help="print JSON instead of text")
+    p.set_defaults(func=_synthesize)
     return parser
 
 

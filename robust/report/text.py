@@ -260,3 +260,85 @@ def time_text(result) -> str:
     verdict = "every requirement holds" if result.passed else "at least one requirement fails"
     out += ["", f"Overall: {verdict} for the gain sets simulated."]
     return "\n".join(out) + "\n"
+
+
+def compare_text(result) -> str:
+    """Gain sets side by side: one column per gain set, rows = metrics (worst case over the box)."""
+    names = [g.gain.name for g in result.gains]
+    rows = []
+    first = result.gains[0]
+    for k, s in enumerate(first.summaries):
+        cells = []
+        values = [g.summaries[k].worst.value for g in result.gains]
+        best = max(values) if s.kind == "min" else min(values)
+        worst = min(values) if s.kind == "min" else max(values)
+        for v in values:
+            mark = (
+                " (worst)"
+                if v == worst and len(set(values)) > 1
+                else ("  (best)" if v == best and len(set(values)) > 1 else "")
+            )
+            cells.append(fmt(v) + mark)
+        rows.append([f"{s.name} [{s.unit}]", *cells])
+    by_req: dict[str, list[str]] = {}
+    for g in result.gains:
+        for v in g.verdicts:
+            key = f"{v.requirement} ({v.metric})"
+            by_req.setdefault(key, [])
+    for key in by_req:
+        for g in result.gains:
+            v = next((v for v in g.verdicts if f"{v.requirement} ({v.metric})" == key), None)
+            if v is None:
+                by_req[key].append("-")
+                continue
+            pf = f", P(fail) <= {_pct(v.failure_interval[1])}" if v.failure_interval else ""
+            by_req[key].append(("pass" if v.passed else "FAIL") + f" ({fmt(v.margin, 3)}{pf})")
+    out = ["Worst case over the box, side by side ('worst'/'best' mark the extremes across gain sets)"]
+    out.append(table(["metric", *names], rows))
+    if by_req:
+        out += ["", "Verdicts (margin; upper confidence bound of the failure probability)"]
+        out.append(table(["requirement", *names], [[k, *v] for k, v in by_req.items()]))
+        out.append(table(["overall", *("PASS" if g.passed else "FAIL" for g in result.gains)], []))
+    return "\n".join(out) + "\n"
+
+
+def design_text(d) -> str:
+    """The synthesize command's report."""
+    p, r, g = d.polytope, d.synthesis, d.gain
+    cert = r.certificate
+    out = [f"LMI synthesis: {d.check.title}", ""]
+    out.append(f"Polytope: route {p.route}, {p.vertices} vertices")
+    out.append(f"  guarantee: {p.guarantee}")
+    for k, v in p.facts.items():
+        if isinstance(v, dict):
+            continue
+        out.append(f"  {k}: {v if not isinstance(v, float) else fmt(v)}")
+    if "moment_intervals" in p.facts:
+        mi = p.facts["moment_intervals"]
+        units = p.facts.get("moment_units", {})
+        out.append(
+            table(
+                ["moment", "low", "high", "unit"],
+                [[k, fmt(a), fmt(b), units.get(k, "")] for k, (a, b) in mi.items()],
+            )
+        )
+    s = r.spec
+    out += [
+        "",
+        f"Request: objective {s.objective}, {s.lyapunov} Lyapunov matrix, decay rate >= {fmt(s.decay_rate)} 1/s"
+        + (f", damping >= {fmt(s.damping)}" if s.damping is not None else "")
+        + (f", natural frequency <= {fmt(s.max_frequency)} rad/s" if s.max_frequency is not None else "")
+        + (f", wheel torque <= {fmt(s.torque_limit)} N m" if s.torque_limit is not None else ""),
+    ]
+    out.append(
+        f"Result: certified decay rate {fmt(r.decay_rate)} 1/s; solver {r.solver} ({r.status}); {r.solve_count} solves"
+        + (f"; slack parameter eps = {fmt(r.epsilon)}" if r.epsilon is not None else "")
+    )
+    out.append(
+        f"Certificate (re-checked with numpy at every vertex): largest LMI eigenvalue {cert.smallest_slack:.3e} "
+        f"(must be < -{cert.tolerance:.1e}), smallest Lyapunov eigenvalue {cert.smallest_x_eig:.3e}: "
+        + ("VALID" if cert.passed else "NOT VALID")
+    )
+    out += ["", f"Gain '{g.name}':", gain_matrix_text(g.K), ""]
+    out.append(compare_text(d.check))
+    return "\n".join(out)

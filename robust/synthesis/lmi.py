@@ -1,0 +1,516 @@
+"""LMI synthesis of one state-feedback gain for a whole descriptor polytope (cvxpy).
+
+Every vertex ``i`` is a descriptor model ``E_i x' = A_i x + B_i u``.  With
+``u = K x`` (this module's sign; the project's gain is ``-K``):
+
+Common Lyapunov matrix (quadratic stability)
+    Augment to ``diag(I, 0) z' = [[0, I], [A, -E]] z + [[0], [B]] u`` with
+    ``z = (x, x')`` and look for ``Xbar = [[X1, 0], [X3, X4]]``, ``X1 > 0``,
+    ``Y`` with ``K = Y X1^-1``.  With ``S_i = [[X3, X4], [A_i X1 + B_i Y - E_i X3, -E_i X4]]``
+    every LMI region of Chilali and Gahinet (1996) with ``L``, ``M`` reads
+    ``L (x) diag(X1, 0) + M (x) S_i + M^T (x) S_i^T < 0``; the congruence with
+    ``[I, E^-1]`` turns it into the classical region condition on
+    ``F = E^-1 (A + B K)`` with Lyapunov matrix ``X1`` (descriptor LMIs of
+    Masubuchi, Kamitane, Ohara and Suda 1997).  Everything is affine in
+    ``(E_i, A_i, B_i)``, so the vertex LMIs cover the polytope; the common
+    ``X1`` covers time-varying parameters too.
+
+Parameter-dependent Lyapunov matrix (``E = I`` only)
+    Extended LMI with a slack ``G`` (in the spirit of de Oliveira, Bernussou
+    and Geromel 1999 and Apkarian, Tuan and Bernussou 2001, continuous time):
+    ``[[He(A_i G + B_i Y), X_i - G^T + eps (A_i G + B_i Y)], [., -eps (G + G^T)]] < 0``
+    with ``K = Y G^-1``; the congruence with ``[I, A_cl]`` gives
+    ``A_cl X_i + X_i A_cl^T < 0`` with a vertex-dependent ``X_i``: less
+    conservative, valid for constant parameters.  ``eps`` is searched on a grid.
+
+Numerical care: states and inputs are scaled (``x = D x~``, ``u = s u~``);
+strict inequalities hold with a margin ``delta`` and bounded ``X``; there is
+always an objective; every LMI is symmetric by construction; the returned
+point is re-checked with numpy eigenvalues (the certificate) whatever the
+solver says, and a failed solve falls back to the next solver.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field, replace
+
+import cvxpy as cp
+import numpy as np
+
+from robust.synthesis.polytope import Polytope
+
+SOLVERS = ("CLARABEL", "SCS")
+DEFAULT_STATE_SCALE = np.array([1.0, 1.0, 0.1, 1.0])  # m/s, rad/s, rad, rad/s: typical magnitudes
+
+
+@dataclass(frozen=True)
+class Spec:
+    """What the synthesis must achieve and what it optimises.
+
+    Attributes
+    ----------
+    decay_rate
+        Required decay rate: every pole left of ``-decay_rate``. [1/s]
+    damping
+        Minimum damping ratio (conic sector), or ``None``. [-]
+    max_frequency
+        Poles inside the disk of this radius about the origin, or ``None``. [rad/s]
+    torque_limit
+        Bound on each wheel torque for all motions starting in the set of
+        ``initial_states`` (invariant ellipsoid), or ``None``. [N m]
+    initial_states
+        Shifted states ``x - x_ref`` right after the commands the torque bound
+        must cover, shape ``(m, 4)`` [SI].
+    cost_Q, cost_R
+        Weights of the guaranteed cost ``int x^T Q x + u^T R u`` (objective ``"cost"``).
+    cost_states
+        Initial states whose worst cost is bounded (objective ``"cost"``), ``(m, 4)``.
+    objective
+        ``"decay"`` (largest decay rate by bisection), ``"gain"`` (smallest
+        gain) or ``"cost"`` (smallest guaranteed cost).
+    lyapunov
+        ``"common"`` or ``"parameter_dependent"``.
+    """
+
+    decay_rate: float = 0.0
+    damping: float | None = None
+    max_frequency: float | None = None
+    torque_limit: float | None = None
+    initial_states: np.ndarray | None = None
+    cost_Q: np.ndarray | None = None
+    cost_R: np.ndarray | None = None
+    cost_states: np.ndarray | None = None
+    objective: str = "gain"
+    lyapunov: str = "common"
+    state_scale: np.ndarray = field(default_factory=lambda: DEFAULT_STATE_SCALE.copy())
+    input_scale: float = 1.0
+
+
+@dataclass(frozen=True)
+class Certificate:
+    """The numbers a reviewer needs to re-check the result without the solver.
+
+    ``lyapunov`` holds the Lyapunov matrix (or one per vertex) in scaled
+    coordinates; ``smallest_slack`` is the largest eigenvalue over all
+    vertex LMIs (negative: strictly satisfied) and ``smallest_x_eig`` the
+    smallest eigenvalue of the Lyapunov matrices.  ``passed`` requires both
+    to clear ``tolerance``.
+    """
+
+    lyapunov: np.ndarray
+    slack: dict
+    smallest_slack: float
+    smallest_x_eig: float
+    tolerance: float
+    passed: bool
+
+
+@dataclass(frozen=True)
+class SynthesisResult:
+    """A synthesized gain with its certificate."""
+
+    K: np.ndarray
+    decay_rate: float
+    objective_value: float
+    solver: str
+    status: str
+    certificate: Certificate
+    spec: Spec
+    epsilon: float | None = None
+    solve_count: int = 0
+
+
+class Infeasible(ValueError):
+    """No gain meets the request; the message says what can be met."""
+
+
+def _he(M):
+    return M + M.T
+
+
+def _sym(M):
+    """Symmetric by construction (cvxpy would silently keep only the symmetric part)."""
+    return 0.5 * (M + M.T)
+
+
+def _scaled(poly: Polytope, spec: Spec):
+    D = np.diag(spec.state_scale)
+    Di = np.diag(1.0 / spec.state_scale)
+    E = Di @ poly.E @ D
+    A = Di @ poly.A @ D
+    B = Di @ poly.B * spec.input_scale
+    return E, A, B
+
+
+def disk_supported(poly: Polytope) -> bool:
+    """The disk (natural-frequency) region needs ``E = I``: in the augmented descriptor
+    form its diagonal blocks vanish, so it is imposed only on the sampled-hull route."""
+    return bool(np.all(np.abs(poly.E - np.eye(4)) <= 1e-12))
+
+
+def _regions(spec: Spec, alpha: float, *, tighten: bool = False):
+    """(L, M) pairs of the LMI regions requested (Chilali and Gahinet 1996).
+
+    With ``tighten`` the regions shrink slightly (decay rate up by 2% plus
+    0.01 1/s, damping up by 0.01, frequency radius down by 2%) so that a
+    solution certifies the requested regions with a margin well above the
+    solver's accuracy.
+    """
+    if tighten:
+        alpha = max(1.02 * alpha, alpha + 0.01)
+    regs = [(np.array([[2.0 * alpha]]), np.array([[1.0]]))]
+    if spec.damping is not None:
+        zeta = min(spec.damping + 0.01, 0.999) if tighten else spec.damping
+        th = np.arccos(zeta)
+        regs.append((np.zeros((2, 2)), np.array([[np.sin(th), np.cos(th)], [-np.cos(th), np.sin(th)]])))
+    if spec.max_frequency is not None:
+        r = spec.max_frequency * (0.98 if tighten else 1.0)
+        regs.append((np.array([[-r, 0.0], [0.0, -r]]), np.array([[0.0, 1.0], [0.0, 0.0]])))
+    return regs
+
+
+def _region_names(spec: Spec) -> list[str]:
+    names = ["decay"]
+    if spec.damping is not None:
+        names.append("damping")
+    if spec.max_frequency is not None:
+        names.append("frequency")
+    return names
+
+
+def _kron_block(L, M, Xbar, S):
+    m = L.shape[0]
+    rows = []
+    for a in range(m):
+        row = []
+        for b in range(m):
+            row.append(L[a, b] * Xbar + M[a, b] * S + M[b, a] * S.T)
+        rows.append(row)
+    return cp.bmat(rows)
+
+
+def _kron_value(L, M, Xbar, S):
+    m = L.shape[0]
+    return np.block([[L[a, b] * Xbar + M[a, b] * S + M[b, a] * S.T for b in range(m)] for a in range(m)])
+
+
+def _solve(prob: cp.Problem):
+    last = None
+    for name in SOLVERS:
+        try:
+            prob.solve(solver=name)
+        except cp.error.SolverError as exc:
+            last = f"{name}: {exc}"
+            continue
+        if prob.status in ("optimal", "optimal_inaccurate"):
+            return name, prob.status
+        last = f"{name}: {prob.status}"
+        if prob.status in ("infeasible", "unbounded", "infeasible_inaccurate", "unbounded_inaccurate"):
+            break  # an answer about the problem, not a solver failure
+    return None, last or "no solver ran"
+
+
+def _common(poly: Polytope, spec: Spec, alpha: float, delta: float):
+    if spec.max_frequency is not None and not disk_supported(poly):
+        spec = replace(spec, max_frequency=None)
+    E, A, B = _scaled(poly, spec)
+    n = 4
+    X1 = cp.Variable((n, n), symmetric=True)
+    Y = cp.Variable((2, n))
+    Z = np.zeros((n, n))
+    cons = [X1 >> delta * np.eye(n), X1 << 1e3 * np.eye(n)]
+    # with a cost objective the positive definite Q already makes the Lyapunov
+    # inequality strict, so the decay region is not tightened (the optimum then
+    # equals the Riccati cost on a single model)
+    regs = _regions(spec, alpha, tighten=True)
+    if spec.objective == "cost":
+        regs[0] = _regions(spec, alpha)[0]
+    slacks = [(cp.Variable((n, n)), cp.Variable((n, n))) for _ in regs]
+    Xbar = cp.bmat([[X1, Z], [Z, Z]])
+    cost_terms = None
+    if spec.objective == "cost":
+        Q = np.diag(spec.state_scale) @ spec.cost_Q @ np.diag(spec.state_scale)
+        R = spec.cost_R * spec.input_scale**2
+        Qh, Rh = _sqrtm(Q), _sqrtm(R)
+        cost_terms = (Qh, Rh)
+    plain = disk_supported(poly)  # E = I: the classical region LMIs, no slack variables
+    for i in range(A.shape[0]):
+        for (L, M), (X3, X4) in zip(regs, slacks):
+            if plain:
+                S = A[i] @ X1 + B[i] @ Y
+                blk = _kron_block(L, M, X1, S)
+                pad = 0
+            else:
+                S = cp.bmat([[X3, X4], [A[i] @ X1 + B[i] @ Y - E[i] @ X3, -E[i] @ X4]])
+                blk = _kron_block(L, M, Xbar, S)
+                pad = n
+            size = blk.shape[0]
+            if cost_terms is not None and L.shape[0] == 1:
+                Qh, Rh = cost_terms
+                C = cp.bmat(
+                    [
+                        [Qh @ X1] + ([np.zeros((n, n))] if pad else []),
+                        [Rh @ Y] + ([np.zeros((2, n))] if pad else []),
+                    ]
+                )
+                big = cp.bmat([[blk, C.T], [C, -np.eye(n + 2)]])
+                cons.append(_sym(big) << -delta * np.eye(size + n + 2))
+            else:
+                cons.append(_sym(blk) << -delta * np.eye(size))
+    kappa = cp.Variable()
+    cons.append(_sym(cp.bmat([[X1, Y.T], [Y, kappa * np.eye(2)]])) >> 0)
+    obj = kappa
+    extra = _ellipsoid_constraints(spec, X1, Y, cons)
+    if spec.objective == "cost":
+        xs = np.diag(1.0 / spec.state_scale) @ np.atleast_2d(spec.cost_states).T
+        gamma = cp.Variable()
+        for j in range(xs.shape[1]):
+            cons.append(
+                _sym(
+                    cp.bmat(
+                        [[cp.reshape(gamma, (1, 1), order="C"), xs[:, j : j + 1].T], [xs[:, j : j + 1], X1]]
+                    )
+                )
+                >> 0
+            )
+        obj = gamma + 1e-6 * kappa
+    else:
+        cons.append(X1 >> np.eye(n) * (delta if extra else 1.0))
+    prob = cp.Problem(cp.Minimize(obj), cons)
+    solver, status = _solve(prob)
+    if solver is None:
+        return None, status
+    X1v, Yv = X1.value, Y.value
+    slack_vals = [(a.value, b.value) for a, b in slacks]
+    slack_vals = [
+        (np.zeros((n, n)) if a is None else a, np.zeros((n, n)) if b is None else b) for a, b in slack_vals
+    ]
+    K_scaled = Yv @ np.linalg.inv(X1v)
+    K = spec.input_scale * K_scaled @ np.diag(1.0 / spec.state_scale)
+    cert = _check_common(poly, spec, alpha, X1v, Yv, slack_vals, delta)
+    value = float(prob.value)
+    return {"K": K, "solver": solver, "status": status, "certificate": cert, "value": value}, status
+
+
+def _ellipsoid_constraints(spec: Spec, X1, Y, cons) -> bool:
+    if spec.torque_limit is None:
+        return False
+    xs = np.diag(1.0 / spec.state_scale) @ np.atleast_2d(spec.initial_states).T
+    for j in range(xs.shape[1]):
+        x0 = xs[:, j : j + 1]
+        cons.append(_sym(cp.bmat([[np.ones((1, 1)), x0.T], [x0, X1]])) >> 0)
+    lim = (spec.torque_limit / spec.input_scale) ** 2
+    for j in range(2):
+        cons.append(_sym(cp.bmat([[X1, Y[j : j + 1, :].T], [Y[j : j + 1, :], lim * np.ones((1, 1))]])) >> 0)
+    return True
+
+
+def _sqrtm(M):
+    w, V = np.linalg.eigh(0.5 * (M + M.T))
+    return V @ np.diag(np.sqrt(np.maximum(w, 0.0))) @ V.T
+
+
+def _check_common(poly, spec, alpha, X1, Y, slacks, delta) -> Certificate:
+    """Re-evaluate every vertex LMI at the returned point with numpy (independent of the solver)."""
+    E, A, B = _scaled(poly, spec)
+    n = 4
+    X1 = 0.5 * (X1 + X1.T)
+    Xbar = np.block([[X1, np.zeros((n, n))], [np.zeros((n, n)), np.zeros((n, n))]])
+    worst = -np.inf
+    per_region = {}
+    plain = disk_supported(poly)
+    for r, ((L, M), (X3, X4)) in enumerate(zip(_regions(spec, alpha), slacks)):
+        top = -np.inf
+        for i in range(A.shape[0]):
+            if plain:
+                blk = _kron_value(L, M, X1, A[i] @ X1 + B[i] @ Y)
+            else:
+                S = np.block([[X3, X4], [A[i] @ X1 + B[i] @ Y - E[i] @ X3, -E[i] @ X4]])
+                blk = _kron_value(L, M, Xbar, S)
+            top = max(top, float(np.linalg.eigvalsh(0.5 * (blk + blk.T)).max()))
+        per_region[_region_names(spec)[r]] = top
+        worst = max(worst, top)
+    xe = float(np.linalg.eigvalsh(X1).min())
+    tol = 1e-10 * max(1.0, float(np.abs(X1).max()))
+    return Certificate(
+        lyapunov=X1,
+        slack=per_region,
+        smallest_slack=worst,
+        smallest_x_eig=xe,
+        tolerance=tol,
+        passed=bool(worst < -tol and xe > tol),
+    )
+
+
+def _pdlf(poly: Polytope, spec: Spec, alpha: float, delta: float, eps: float):
+    if np.any(np.abs(poly.E - np.eye(4)) > 1e-12):
+        raise ValueError("the parameter-dependent Lyapunov variant needs E = I (route 'sampled_hull')")
+    if spec.damping is not None or spec.max_frequency is not None or spec.objective == "cost":
+        raise ValueError(
+            "the parameter-dependent Lyapunov variant supports the decay rate, gain size and torque bound; "
+            "use lyapunov = 'common' for damping, frequency or cost"
+        )
+    _E, A, B = _scaled(poly, spec)
+    n, m = 4, A.shape[0]
+    G = cp.Variable((n, n))
+    Y = cp.Variable((2, n))
+    Xs = [cp.Variable((n, n), symmetric=True) for _ in range(m)]
+    cons = []
+    I = np.eye(n)
+    a_in = max(1.02 * alpha, alpha + 0.01)  # solve tighter, certify at the requested rate
+    for i in range(m):
+        AG = (A[i] + a_in * I) @ G + B[i] @ Y
+        Phi = cp.bmat([[_he(AG), Xs[i] - G.T + eps * AG], [Xs[i] - G + eps * AG.T, -eps * _he(G)]])
+        cons += [_sym(Phi) << -delta * np.eye(2 * n), Xs[i] >> delta * I, Xs[i] << 1e3 * I]
+    kappa = cp.Variable()
+    cons.append(_sym(cp.bmat([[kappa * np.eye(2), Y], [Y.T, _he(G) - I]])) >> 0)
+    if spec.torque_limit is not None:
+        xs = np.diag(1.0 / spec.state_scale) @ np.atleast_2d(spec.initial_states).T
+        lim = (spec.torque_limit / spec.input_scale) ** 2
+        for i in range(m):
+            for j in range(xs.shape[1]):
+                x0 = xs[:, j : j + 1]
+                cons.append(_sym(cp.bmat([[np.ones((1, 1)), x0.T], [x0, Xs[i]]])) >> 0)
+            for j in range(2):
+                cons.append(
+                    _sym(
+                        cp.bmat(
+                            [[lim * np.ones((1, 1)), Y[j : j + 1, :]], [Y[j : j + 1, :].T, _he(G) - Xs[i]]]
+                        )
+                    )
+                    >> 0
+                )
+    prob = cp.Problem(cp.Minimize(kappa), cons)
+    solver, status = _solve(prob)
+    if solver is None:
+        return None, status
+    Gv, Yv = G.value, Y.value
+    Xv = [0.5 * (X.value + X.value.T) for X in Xs]
+    worst = -np.inf
+    for i in range(m):
+        AG = (A[i] + alpha * I) @ Gv + B[i] @ Yv
+        Phi = np.block([[AG + AG.T, Xv[i] - Gv.T + eps * AG], [Xv[i] - Gv + eps * AG.T, -eps * (Gv + Gv.T)]])
+        worst = max(worst, float(np.linalg.eigvalsh(0.5 * (Phi + Phi.T)).max()))
+    xe = min(float(np.linalg.eigvalsh(X).min()) for X in Xv)
+    tol = 1e-10 * max(1.0, max(float(np.abs(X).max()) for X in Xv))
+    cert = Certificate(
+        lyapunov=np.stack(Xv),
+        slack={"decay": worst},
+        smallest_slack=worst,
+        smallest_x_eig=xe,
+        tolerance=tol,
+        passed=bool(worst < -tol and xe > tol),
+    )
+    K = spec.input_scale * (Yv @ np.linalg.inv(Gv)) @ np.diag(1.0 / spec.state_scale)
+    return {
+        "K": K,
+        "solver": solver,
+        "status": status,
+        "certificate": cert,
+        "value": float(prob.value),
+    }, status
+
+
+EPSILONS = (0.03, 0.1, 0.3, 1.0)
+
+
+def _attempt(poly, spec, alpha, delta):
+    """One solve at decay rate ``alpha``; returns (result or None, status text, solves)."""
+    if spec.lyapunov == "common":
+        res, status = _common(poly, spec, alpha, delta)
+        ok = res is not None and res["certificate"].passed
+        return (res if ok else None), status, 1
+    best = None
+    last = "infeasible"
+    count = 0
+    for eps in EPSILONS:
+        res, status = _pdlf(poly, spec, alpha, delta, eps)
+        count += 1
+        last = status
+        if res is not None and res["certificate"].passed and (best is None or res["value"] < best["value"]):
+            best = dict(res, epsilon=eps)
+    return best, last, count
+
+
+def synthesize(
+    poly: Polytope, spec: Spec, *, delta: float = 1e-6, bisection_steps: int = 8
+) -> SynthesisResult:
+    """Synthesize one gain for the whole polytope.
+
+    Raises
+    ------
+    Infeasible
+        When the request cannot be certified; the message names what could
+        not be met and the best value that can (largest certifiable decay
+        rate with the other constraints kept).
+    """
+    if spec.objective not in ("decay", "gain", "cost"):
+        raise ValueError(f"objective: expected 'decay', 'gain' or 'cost', got {spec.objective!r}")
+    if spec.lyapunov not in ("common", "parameter_dependent"):
+        raise ValueError(f"lyapunov: expected 'common' or 'parameter_dependent', got {spec.lyapunov!r}")
+    solves = 0
+    res, status, c = _attempt(poly, spec, spec.decay_rate, delta)
+    solves += c
+    if res is None:
+        # what can be met: bisect the decay rate below the requested one
+        lo, hi = 0.0, spec.decay_rate
+        best = None
+        base, st0, c = _attempt(poly, spec, 0.0, delta)
+        solves += c
+        if base is None:
+            parts = ["stability of every model"]
+            if spec.damping is not None:
+                parts.append(f"damping >= {spec.damping:g}")
+            if spec.max_frequency is not None and disk_supported(poly):
+                parts.append(f"natural frequency <= {spec.max_frequency:g} rad/s")
+            if spec.torque_limit is not None:
+                parts.append(f"wheel torque <= {spec.torque_limit:g} N m for the stated initial states")
+            raise Infeasible(
+                f"no gain could be certified for {', '.join(parts)} over this polytope "
+                f"({poly.route}, {poly.vertices} vertices, {spec.lyapunov} Lyapunov matrix; solver said: {st0}). "
+                "Relax the damping, frequency or torque request, narrow the ranges, or try the other route."
+            )
+        best = 0.0
+        for _ in range(bisection_steps):
+            mid = 0.5 * (lo + hi)
+            r, _s, c = _attempt(poly, spec, mid, delta)
+            solves += c
+            if r is not None:
+                lo, best = mid, mid
+            else:
+                hi = mid
+        raise Infeasible(
+            f"decay rate {spec.decay_rate:g} 1/s could not be certified over this polytope "
+            f"({poly.route}, {spec.lyapunov} Lyapunov matrix) with the other constraints kept; "
+            f"the largest certifiable decay rate is about {best:.4g} 1/s"
+        )
+    alpha = spec.decay_rate
+    if spec.objective == "decay":
+        lo, hi = alpha, max(2.0 * alpha, 1.0)
+        while True:  # grow the bracket (up to 64 1/s: faster is beyond any drive)
+            r, _s, c = _attempt(poly, spec, hi, delta)
+            solves += c
+            if r is None or hi >= 64.0:
+                break
+            lo, res, hi = hi, r, 2.0 * hi
+        for _ in range(bisection_steps):
+            mid = 0.5 * (lo + hi)
+            r, _s, c = _attempt(poly, spec, mid, delta)
+            solves += c
+            if r is not None:
+                lo, res = mid, r
+            else:
+                hi = mid
+        alpha = lo
+    cert = res["certificate"]
+    return SynthesisResult(
+        K=-res["K"],
+        decay_rate=alpha,
+        objective_value=res["value"],
+        solver=res["solver"],
+        status=res["status"],
+        certificate=cert,
+        spec=spec,
+        epsilon=res.get("epsilon"),
+        solve_count=solves,
+    )
