@@ -97,9 +97,7 @@ def main() -> None:
         for j in range(2):
             o = 1 - j
             F = m.A[i] - m.B[i][:, o : o + 1] @ K[o : o + 1]
-            gm, pm, *_ = control.stability_margins(
-                control.ss(F, m.B[i][:, j : j + 1], K[j : j + 1], 0), returnall=True
-            )
+            gm, pm, *_ = control.stability_margins(control.ss(F, m.B[i][:, j : j + 1], K[j : j + 1], 0), returnall=True)
             gm = np.asarray(gm)
             below = gm[(gm < 1) & (gm > 1e-6)]
             if below.size:

@@ -62,9 +62,7 @@ def reference(plant1, K):
         sol = solve_ivp(f, (k * T, (k + 1) * T), x, method="RK45", rtol=1e-8, atol=1e-10, dense_output=True)
         for tt in np.linspace(k * T, (k + 1) * T, CTL.substeps + 1)[:-1]:
             y = sol.sol(tt)
-            peak_torque = max(
-                peak_torque, float(np.abs(drive_output(plant1, u[None, :], spin(y))["torque"]).max())
-            )
+            peak_torque = max(peak_torque, float(np.abs(drive_output(plant1, u[None, :], spin(y))["torque"]).max()))
             peak_pitch = max(peak_pitch, abs(float(y[5])))
         x = sol.y[:, -1]
     return peak_pitch, peak_torque
@@ -105,14 +103,10 @@ def main() -> None:
     refs = [reference(plant.take(slice(i, i + 1)), K) for i in range(n_ref)]
     t_ref = time.perf_counter() - t
     d_pitch = max(abs(res.metrics["peak_pitch_rad"][i] - refs[i][0]) / refs[i][0] for i in range(n_ref))
-    d_torque = max(
-        abs(res.metrics["peak_torque_n_m"][i].max() - refs[i][1]) / refs[i][1] for i in range(n_ref)
-    )
+    d_torque = max(abs(res.metrics["peak_torque_n_m"][i].max() - refs[i][1]) / refs[i][1] for i in range(n_ref))
     r_ours, r_ref = n_batch / t_ours, n_ref / t_ref
     print("1. Batched RK4 vs per-sample solve_ivp (RK45, rtol 1e-8), 5 s speed step at 200 Hz")
-    print(
-        f"  solve_ivp loop {r_ref:8.2f} models/s ({n_ref} models); ours {r_ours:8.1f} models/s ({n_batch} models)"
-    )
+    print(f"  solve_ivp loop {r_ref:8.2f} models/s ({n_ref} models); ours {r_ours:8.1f} models/s ({n_batch} models)")
     print(
         f"  ratio {r_ours / r_ref:,.0f}x (target >= 50x); largest relative difference: "
         f"peak pitch {d_pitch:.1e}, peak torque {d_torque:.1e} (target 1e-3)"

@@ -297,13 +297,9 @@ def _ranges(doc: dict, vehicle: Vehicle) -> tuple[Range, ...]:
             dist = _text(tab, "distribution", path, default="uniform")
             nominal = get_parameter(vehicle, name)
             if dist not in DISTRIBUTIONS:
-                raise CaseError(
-                    f"'{path}.distribution': expected one of {', '.join(DISTRIBUTIONS)}, got {dist!r}"
-                )
+                raise CaseError(f"'{path}.distribution': expected one of {', '.join(DISTRIBUTIONS)}, got {dist!r}")
             if not low < high:
-                raise CaseError(
-                    f"'{path}': expected low < high [{info.unit}], got low={low:g}, high={high:g}"
-                )
+                raise CaseError(f"'{path}': expected low < high [{info.unit}], got low={low:g}, high={high:g}")
             if not low <= nominal <= high:
                 raise CaseError(
                     f"'{path}': the nominal value {nominal:g} {info.unit} (vehicle.{name}) must lie "
@@ -317,9 +313,7 @@ def _ranges(doc: dict, vehicle: Vehicle) -> tuple[Range, ...]:
             if dist in ("triangular", "normal"):
                 mode = _number(tab, "mode", path, info.unit, default=nominal)
                 if not low <= mode <= high:
-                    raise CaseError(
-                        f"'{path}.mode': expected within [{low:g}, {high:g}] {info.unit}, got {mode:g}"
-                    )
+                    raise CaseError(f"'{path}.mode': expected within [{low:g}, {high:g}] {info.unit}, got {mode:g}")
             elif "mode" in tab:
                 raise CaseError(f"'{path}.mode': only used with a triangular or normal distribution")
             if dist == "normal":
@@ -352,9 +346,7 @@ def _check_inertia_corners(vehicle: Vehicle, ranges: list[Range]) -> None:
         check_physical(values, where="ranges (at a corner of the box): ")
     except ValueError as exc:
         raise CaseError(str(exc)) from None
-    _check_composite(
-        vehicle, {n: pts[:, j] for j, n in enumerate(box.names)}, "ranges (at a corner of the box)"
-    )
+    _check_composite(vehicle, {n: pts[:, j] for j, n in enumerate(box.names)}, "ranges (at a corner of the box)")
 
 
 def parse_case(text: str, *, source: str = "<text>") -> Case:
@@ -485,9 +477,7 @@ def _study(doc: dict) -> Study:
         seed=_integer(st, "seed", "study", default=base.seed, low=0),
         confidence=confidence,
         search=search,
-        simulation_samples=_integer(
-            st, "simulation_samples", "study", default=base.simulation_samples, low=0
-        ),
+        simulation_samples=_integer(st, "simulation_samples", "study", default=base.simulation_samples, low=0),
     )
 
 
@@ -501,8 +491,7 @@ def _controller(doc: dict) -> Controller:
     latency = _number(ct, "latency_s", "controller", "s", default=base.latency_s)
     if not 0 <= latency <= period:
         raise CaseError(
-            f"'controller.latency_s': expected between 0 and the sample period {period:g} [s], "
-            f"got {latency:g}"
+            f"'controller.latency_s': expected between 0 and the sample period {period:g} [s], got {latency:g}"
         )
     fall = _number(ct, "fall_angle_deg", "controller", "deg", default=float(np.degrees(base.fall_angle_rad)))
     if not 0 < fall < 90:
@@ -510,9 +499,7 @@ def _controller(doc: dict) -> Controller:
     trim = ct.get("trim", base.trim)
     if not isinstance(trim, bool):
         raise CaseError(f"'controller.trim': expected true or false, got {trim!r}")
-    return Controller(
-        sample_period_s=period, latency_s=latency, fall_angle_rad=float(np.radians(fall)), trim=trim
-    )
+    return Controller(sample_period_s=period, latency_s=latency, fall_angle_rad=float(np.radians(fall)), trim=trim)
 
 
 def _manoeuvres(doc: dict, vehicle: Vehicle, controller: Controller) -> tuple[Manoeuvre, ...]:
@@ -583,9 +570,7 @@ def _gains(doc: dict) -> tuple[GainSpec, ...]:
         if method == "matrix":
             m = tab.get("matrix")
             if not (isinstance(m, list) and len(m) == 2):
-                raise CaseError(
-                    f"'{path}.matrix': expected 2 rows of 4 numbers (left, right wheel), got {m!r}"
-                )
+                raise CaseError(f"'{path}.matrix': expected 2 rows of 4 numbers (left, right wheel), got {m!r}")
             data["matrix"] = [_number_list({"r": r}, "r", f"{path}.matrix", "SI", 4) for r in m]
         elif method == "poles":
             if "poles" not in tab:
@@ -606,9 +591,7 @@ def _gains(doc: dict) -> tuple[GainSpec, ...]:
             direct = "state_weights" in tab or "input_weights" in tab
             bryson = [k for k in GAIN_METHODS["lqr"][2:] if k in tab]
             if direct and bryson:
-                raise CaseError(
-                    f"'{path}': give either state_weights/input_weights or the max_* keys, not both"
-                )
+                raise CaseError(f"'{path}': give either state_weights/input_weights or the max_* keys, not both")
             if direct:
                 for key, n in (("state_weights", 4), ("input_weights", 2)):
                     if key not in tab:

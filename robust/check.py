@@ -216,9 +216,7 @@ def check_gain(
                 fails = int(np.sum(vals > threshold))
                 margin = threshold - s.worst.value
             n = len(vals)
-            interval = (
-                clopper_pearson(fails, n, study.confidence) if study.plan == "monte_carlo" and n else None
-            )
+            interval = clopper_pearson(fails, n, study.confidence) if study.plan == "monte_carlo" and n else None
             verdicts.append(
                 Verdict(
                     requirement=key,
@@ -255,9 +253,7 @@ def run_check(
     study = study or case.study
     if not gains:
         raise ValueError("no gain set to check: add [gains.NAME] to the case or pass a gain file")
-    points = plan_points(
-        case.box, study.plan, samples=study.samples, seed=study.seed, grid_points=study.grid_points
-    )
+    points = plan_points(case.box, study.plan, samples=study.samples, seed=study.seed, grid_points=study.grid_points)
     checks = tuple(check_gain(case, g, study, points, progress=progress) for g in gains)
     return CheckResult(
         title=case.title,

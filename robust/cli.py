@@ -166,12 +166,8 @@ def build_parser() -> argparse.ArgumentParser:
         help="check gain sets against the whole parameter box (eigenvalues, margins, worst case)",
     )
     p.add_argument("case", help="case file (TOML)")
-    p.add_argument(
-        "--gain", action="append", metavar="NAME", help="gain set from the case (repeatable; default all)"
-    )
-    p.add_argument(
-        "--gain-file", action="append", metavar="PATH", help="gain file to check as well (repeatable)"
-    )
+    p.add_argument("--gain", action="append", metavar="NAME", help="gain set from the case (repeatable; default all)")
+    p.add_argument("--gain-file", action="append", metavar="PATH", help="gain file to check as well (repeatable)")
     _study_options(p)
     p.add_argument("--json", action="store_true", help="print JSON instead of text")
     p.set_defaults(func=_check)
@@ -181,18 +177,12 @@ def build_parser() -> argparse.ArgumentParser:
         help="simulate gain sets through the case's manoeuvres on the nonlinear model with drive limits",
     )
     p.add_argument("case", help="case file (TOML)")
-    p.add_argument(
-        "--gain", action="append", metavar="NAME", help="gain set from the case (repeatable; default all)"
-    )
-    p.add_argument(
-        "--gain-file", action="append", metavar="PATH", help="gain file to simulate as well (repeatable)"
-    )
+    p.add_argument("--gain", action="append", metavar="NAME", help="gain set from the case (repeatable; default all)")
+    p.add_argument("--gain-file", action="append", metavar="PATH", help="gain file to simulate as well (repeatable)")
     p.add_argument("--simulation-samples", type=_nonneg_int, help="Monte Carlo samples besides the corners")
     p.add_argument("--seed", type=_seed, help="seed of the Monte Carlo samples")
     p.add_argument("--quiet", action="store_true", help="no progress messages")
-    p.add_argument(
-        "--json", action="store_true", help="print JSON instead of text (includes envelopes and traces)"
-    )
+    p.add_argument("--json", action="store_true", help="print JSON instead of text (includes envelopes and traces)")
     p.set_defaults(func=_simulate)
 
     p = sub.add_parser(
@@ -203,15 +193,11 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument(
         "--route", choices=("moment_box", "sampled_hull"), help="polytope route (default: case or moment_box)"
     )
-    p.add_argument(
-        "--lyapunov", choices=("common", "parameter_dependent"), help="Lyapunov matrix (default common)"
-    )
+    p.add_argument("--lyapunov", choices=("common", "parameter_dependent"), help="Lyapunov matrix (default common)")
     p.add_argument("--objective", choices=("gain", "decay", "cost"), help="what to optimise (default gain)")
     p.add_argument("--name", help="name of the new gain set (default: case or 'lmi')")
     p.add_argument("--out", metavar="PATH", help="gain file to write (default gains/NAME.toml)")
-    p.add_argument(
-        "--gain", action="append", metavar="NAME", help="case gain sets to compare with (default all)"
-    )
+    p.add_argument("--gain", action="append", metavar="NAME", help="case gain sets to compare with (default all)")
     p.add_argument("--quiet", action="store_true", help="no progress messages")
     p.add_argument("--json", action="store_true", help="print JSON instead of text")
     p.set_defaults(func=_synthesize)

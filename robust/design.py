@@ -50,9 +50,7 @@ def make_spec(case: Case, overrides: dict | None = None) -> Spec:
     opts.update({k: v for k, v in (overrides or {}).items() if v is not None})
     req = case.requirements
     drive = case.vehicle.drive
-    locked = drive.torque_constant_n_m_per_a * min(
-        drive.current_limit_a, drive.supply_v / drive.resistance_ohm
-    )
+    locked = drive.torque_constant_n_m_per_a * min(drive.current_limit_a, drive.supply_v / drive.resistance_ohm)
     objective = opts.get("objective", "gain")
     Q = R = xs = None
     if objective == "cost":
@@ -111,9 +109,7 @@ def design(
     if "hull_margin" in opts:
         kw["margin"] = opts["hull_margin"]
     poly = build_polytope(case.box, route, **(kw if route == "sampled_hull" else {}))
-    say(
-        f"solving the LMIs on {poly.vertices} vertices ({spec.lyapunov} Lyapunov matrix, objective {spec.objective})"
-    )
+    say(f"solving the LMIs on {poly.vertices} vertices ({spec.lyapunov} Lyapunov matrix, objective {spec.objective})")
     res = synthesize(poly, spec)
     name = opts.get("name", "lmi")
     cert = res.certificate

@@ -100,9 +100,7 @@ def accelerations(plant: Plant, speed, yaw_rate, pitch, pitch_rate, torque, push
     dv = (m33 * f1 - Mlc * f3) / det
     ddp = (m11 * f3 - Mlc * f1) / det
     dw = (
-        p.d * D / p.r
-        - 2.0 * (p.I1 - p.I3 + Ml * p.l) * s * c * yaw_rate * pitch_rate
-        - Ml * s * speed * yaw_rate
+        p.d * D / p.r - 2.0 * (p.I1 - p.I3 + Ml * p.l) * s * c * yaw_rate * pitch_rate - Ml * s * speed * yaw_rate
     ) / m22
     return np.stack([dv, dw, ddp], axis=-1)
 

@@ -361,9 +361,7 @@ def simulate(
         (yaw_resp, "yaw_rate", manoeuvre.steps_yaw_rate, final_w),
     ):
         if on:
-            rise = np.where(
-                np.isfinite(resp.t90), resp.t90 - np.where(np.isfinite(resp.t10), resp.t10, 0.0), np.inf
-            )
+            rise = np.where(np.isfinite(resp.t90), resp.t90 - np.where(np.isfinite(resp.t10), resp.t10, 0.0), np.inf)
             metrics[f"{key}_rise_time_s"] = np.where(fell, np.inf, rise)
             over = np.where(target != 0, resp.extreme / np.abs(np.where(target != 0, target, 1.0)) - 1.0, 0.0)
             metrics[f"{key}_overshoot"] = np.where(fell, np.inf, np.maximum(over, 0.0))

@@ -222,9 +222,7 @@ def time_check_gain(
         if key not in req:
             continue
         if metric is None:
-            groups = all_metrics.get("speed_settling_time_s", []) + all_metrics.get(
-                "yaw_rate_settling_time_s", []
-            )
+            groups = all_metrics.get("speed_settling_time_s", []) + all_metrics.get("yaw_rate_settling_time_s", [])
         else:
             groups = all_metrics.get(metric, [])
         if not groups:

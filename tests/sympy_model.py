@@ -19,9 +19,7 @@ def derive():
     """Return a numeric function ``f(params, state, torque) -> (v', w', p'')``."""
     x, y, psi, th, phl, phr = me.dynamicsymbols("x y psi th phl phr")
     ux, uy, upsi, uth, ul, ur = me.dynamicsymbols("ux uy upsi uth ul ur")
-    r, mw, Jw, Kw, d, cb, M, l, I1, I2, I3, g, tl, tr = sm.symbols(
-        "r m_w J_w K_w d c_b M l I1 I2 I3 g tau_l tau_r"
-    )
+    r, mw, Jw, Kw, d, cb, M, l, I1, I2, I3, g, tl, tr = sm.symbols("r m_w J_w K_w d c_b M l I1 I2 I3 g tau_l tau_r")
     N = me.ReferenceFrame("N")
     Yf = N.orientnew("Y", "Axis", [psi, N.z])  # yaw frame: x forward, y left
     Bf = Yf.orientnew("B", "Axis", [th, Yf.y])  # body frame, pitch about the axle

@@ -71,9 +71,7 @@ BAD = [
     ),
     (
         "centre of mass below axle",
-        edit("cg_height_m = 0.20", "cg_height_m = -2.0").replace(
-            "cg_height_m = 1.05", "cg_height_m = 0.0", 1
-        ),
+        edit("cg_height_m = 0.20", "cg_height_m = -2.0").replace("cg_height_m = 1.05", "cg_height_m = 0.0", 1),
         r"composite centre of mass must lie above the axle",
     ),
     (
@@ -122,9 +120,7 @@ def test_bad_case_is_rejected_with_named_key(label, text, pattern):
         parse_case(text)
 
 
-@pytest.mark.parametrize(
-    ("label", "text", "pattern"), BAD[:6] + BAD[13:15], ids=[b[0] for b in BAD[:6] + BAD[13:15]]
-)
+@pytest.mark.parametrize(("label", "text", "pattern"), BAD[:6] + BAD[13:15], ids=[b[0] for b in BAD[:6] + BAD[13:15]])
 def test_bad_case_exits_2_without_traceback(tmp_path, capsys, label, text, pattern):
     path = tmp_path / "bad.toml"
     path.write_text(text)

@@ -19,9 +19,7 @@ def transporter_json():
 
     buf = io.StringIO()
     with contextlib.redirect_stdout(buf):
-        code = main(
-            ["check", str(CASES / "stand_up_transporter.toml"), "--json", "--samples", "600", "--quiet"]
-        )
+        code = main(["check", str(CASES / "stand_up_transporter.toml"), "--json", "--samples", "600", "--quiet"])
     return code, json.loads(buf.getvalue())
 
 

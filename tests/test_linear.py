@@ -43,9 +43,7 @@ def test_linear_model_matches_central_difference_jacobian():
         e = np.zeros(2)
         e[j] = h
         delivered = (p.kt / p.kt_nominal)[:, None]
-        Jb[:, :, j] = (derivative(p, x0, (u0 + e) * delivered) - derivative(p, x0, (u0 - e) * delivered)) / (
-            2 * h
-        )
+        Jb[:, :, j] = (derivative(p, x0, (u0 + e) * delivered) - derivative(p, x0, (u0 - e) * delivered)) / (2 * h)
     scale = np.abs(lin.A).max()
     np.testing.assert_allclose(lin.A, J, rtol=1e-6, atol=1e-6 * scale)
     np.testing.assert_allclose(lin.B, Jb, rtol=1e-6, atol=1e-6 * np.abs(lin.B).max())

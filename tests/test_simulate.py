@@ -63,9 +63,7 @@ def _reference_solve_ivp(plant1, K, man, ctl):
                     ]
                 ]
             )
-            peak_torque = max(
-                peak_torque, float(np.abs(drive_output(plant1, u[None, :], spin)["torque"]).max())
-            )
+            peak_torque = max(peak_torque, float(np.abs(drive_output(plant1, u[None, :], spin)["torque"]).max()))
             peak_pitch = max(peak_pitch, abs(float(y[5])))
         x = sol.y[:, -1]
     return np.array(starts), peak_pitch, peak_torque
@@ -98,9 +96,7 @@ def test_energy_conserved_with_no_torque(setup):
     conserved while the body falls from a small lean; RK4 at 1 ms keeps it to
     1e-7 of M g l."""
     case, _K, plant = setup
-    ctl = Controller(
-        sample_period_s=0.001, latency_s=0.0, trim=False, fall_angle_rad=np.radians(80), substeps=1
-    )
+    ctl = Controller(sample_period_s=0.001, latency_s=0.0, trim=False, fall_angle_rad=np.radians(80), substeps=1)
     man = Manoeuvre("lean", "tilted_start", 2.0, initial_pitch_rad=np.radians(3.0))
     res = simulate(plant, np.zeros((2, 4)), man, ctl, trace=True)
     tr = res.trace
@@ -172,9 +168,7 @@ def test_large_step_falls_and_survivable_step_is_found(setup):
     case, K, plant = setup
     ctl = case.controller
     man = Manoeuvre("probe", "speed_step", 3.0, start_s=0.1, speed_m_s=1.0)
-    no_load = (
-        case.vehicle.drive.supply_v / case.vehicle.drive.back_emf_v_s_per_rad * case.vehicle.wheel.radius_m
-    )
+    no_load = case.vehicle.drive.supply_v / case.vehicle.drive.back_emf_v_s_per_rad * case.vehicle.wheel.radius_m
     s = survivable_step(plant, K, man, ctl, upper=no_load, rounds=3)
     assert np.all(s["survived"] > 0.5) and np.all(s["survived"] < s["failed"])
     big = simulate(plant, K, man, ctl, scale=np.full(plant.n, 0.95 * no_load))
@@ -235,9 +229,7 @@ def test_bad_manoeuvres_rejected(transporter, old, new, msg):
 def test_push_moves_the_vehicle(setup):
     """A forward push on the body makes the controller drive forward to catch it."""
     case, K, plant = setup
-    man = Manoeuvre(
-        "push", "push", 3.0, start_s=0.2, push_force_n=100.0, push_height_m=1.2, push_duration_s=0.2
-    )
+    man = Manoeuvre("push", "push", 3.0, start_s=0.2, push_force_n=100.0, push_height_m=1.2, push_duration_s=0.2)
     tr = simulate(plant.take(slice(0, 1)), K, man, case.controller, trace=True).trace
     assert tr.state[0, :, SPEED].max() > 0.05
     assert tr.state[0, :, 5].max() > 0.0

@@ -12,9 +12,7 @@ def test_corners_and_grid(transporter):
     box = transporter.box
     c = corners(box)
     assert c.shape == (8, 3)
-    assert {tuple(row) for row in c} == {
-        (a, b, d) for a in (45.0, 118.0) for b in (0.85, 1.2) for d in (1.7, 2.1)
-    }
+    assert {tuple(row) for row in c} == {(a, b, d) for a in (45.0, 118.0) for b in (0.85, 1.2) for d in (1.7, 2.1)}
     g = grid(box, 4)
     assert g.shape == (64, 3)
     np.testing.assert_allclose(np.unique(g[:, 0]), np.linspace(45.0, 118.0, 4), rtol=1e-15)

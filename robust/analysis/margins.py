@@ -90,9 +90,7 @@ def _roots(p: np.ndarray) -> np.ndarray:
 def _real_nonneg(roots: np.ndarray, rtol: float = 1e-6) -> np.ndarray:
     """Real parts of roots that are real and >= 0 (others set to NaN), ``(n, m)``."""
     re = roots.real
-    ok = (np.abs(roots.imag) <= rtol * np.maximum(1.0, np.abs(roots))) & (
-        re >= -1e-12 * np.maximum(1.0, np.abs(re))
-    )
+    ok = (np.abs(roots.imag) <= rtol * np.maximum(1.0, np.abs(roots))) & (re >= -1e-12 * np.maximum(1.0, np.abs(re)))
     return np.where(ok, np.maximum(re, 0.0), np.nan)
 
 

@@ -92,9 +92,7 @@ METRICS: dict[str, Metric] = {
             "loop",
             "gain reduction margin (as a positive dB figure), worst wheel input",
         ),
-        Metric(
-            "phase_margin", "deg", "min", "min_phase_margin_deg", "loop", "phase margin, worst wheel input"
-        ),
+        Metric("phase_margin", "deg", "min", "min_phase_margin_deg", "loop", "phase margin, worst wheel input"),
         Metric("delay_margin", "ms", "min", "min_delay_margin_ms", "loop", "delay margin, worst wheel input"),
         Metric(
             "disk_margin",

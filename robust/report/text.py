@@ -123,9 +123,7 @@ def model_text(f: ModelFacts) -> str:
                     mark,
                 ]
             )
-        out.append(
-            table(["corner", *c.names, "divergence [1/s]", "double [ms]", "rank 4", "rank 7", "note"], rows)
-        )
+        out.append(table(["corner", *c.names, "divergence [1/s]", "double [ms]", "rank 4", "rank 7", "note"], rows))
     return "\n".join(out) + "\n"
 
 
@@ -229,9 +227,7 @@ def time_text(result) -> str:
     for g in result.gains:
         out += ["", "=" * 78, f"Gain set '{g.gain.name}' ({g.gain.origin}): {'PASS' if g.passed else 'FAIL'}"]
         for m in g.manoeuvres:
-            fall = (
-                f"{m.fell} of {m.models} fell (first at {fmt(m.first_fall_s)} s)" if m.fell else "none fell"
-            )
+            fall = f"{m.fell} of {m.models} fell (first at {fmt(m.first_fall_s)} s)" if m.fell else "none fell"
             out += ["", f"Manoeuvre '{m.name}' ({m.kind}): {fall}"]
             rows = [[w.name, w.unit, fmt(w.median), fmt(w.value), _loc(w.at)] for w in m.worst]
             out.append(table(["metric", "unit", "median", "worst", "worst at"], rows))
@@ -254,9 +250,7 @@ def time_text(result) -> str:
                 ]
                 for v in g.verdicts
             ]
-            out.append(
-                table(["requirement", "bound", "worst", "unit", "margin", "verdict", "failing runs"], rows)
-            )
+            out.append(table(["requirement", "bound", "worst", "unit", "margin", "verdict", "failing runs"], rows))
     verdict = "every requirement holds" if result.passed else "at least one requirement fails"
     out += ["", f"Overall: {verdict} for the gain sets simulated."]
     return "\n".join(out) + "\n"

@@ -32,6 +32,7 @@ solver says, and a failed solve falls back to the next solver.
 
 from __future__ import annotations
 
+import warnings
 from dataclasses import dataclass, field, replace
 
 import cvxpy as cp
@@ -40,6 +41,11 @@ import numpy as np
 from robust.synthesis.polytope import Polytope
 
 SOLVERS = ("CLARABEL", "SCS")
+# bounded effort: an ill-conditioned request fails in seconds instead of grinding for minutes
+SOLVER_OPTIONS = {
+    "CLARABEL": {"max_iter": 200, "time_limit": 20.0},
+    "SCS": {"max_iters": 20000, "time_limit_secs": 20.0},
+}
 DEFAULT_STATE_SCALE = np.array([1.0, 1.0, 0.1, 1.0])  # m/s, rad/s, rad, rad/s: typical magnitudes
 
 
@@ -198,7 +204,9 @@ def _solve(prob: cp.Problem):
     last = None
     for name in SOLVERS:
         try:
-            prob.solve(solver=name)
+            with warnings.catch_warnings():  # the status is handled below and the certificate re-checked
+                warnings.simplefilter("ignore", UserWarning)
+                prob.solve(solver=name, **SOLVER_OPTIONS.get(name, {}))
         except cp.error.SolverError as exc:
             last = f"{name}: {exc}"
             continue
@@ -266,12 +274,7 @@ def _common(poly: Polytope, spec: Spec, alpha: float, delta: float):
         gamma = cp.Variable()
         for j in range(xs.shape[1]):
             cons.append(
-                _sym(
-                    cp.bmat(
-                        [[cp.reshape(gamma, (1, 1), order="C"), xs[:, j : j + 1].T], [xs[:, j : j + 1], X1]]
-                    )
-                )
-                >> 0
+                _sym(cp.bmat([[cp.reshape(gamma, (1, 1), order="C"), xs[:, j : j + 1].T], [xs[:, j : j + 1], X1]])) >> 0
             )
         obj = gamma + 1e-6 * kappa
     else:
@@ -282,9 +285,7 @@ def _common(poly: Polytope, spec: Spec, alpha: float, delta: float):
         return None, status
     X1v, Yv = X1.value, Y.value
     slack_vals = [(a.value, b.value) for a, b in slacks]
-    slack_vals = [
-        (np.zeros((n, n)) if a is None else a, np.zeros((n, n)) if b is None else b) for a, b in slack_vals
-    ]
+    slack_vals = [(np.zeros((n, n)) if a is None else a, np.zeros((n, n)) if b is None else b) for a, b in slack_vals]
     K_scaled = Yv @ np.linalg.inv(X1v)
     K = spec.input_scale * K_scaled @ np.diag(1.0 / spec.state_scale)
     cert = _check_common(poly, spec, alpha, X1v, Yv, slack_vals, delta)
@@ -373,12 +374,7 @@ def _pdlf(poly: Polytope, spec: Spec, alpha: float, delta: float, eps: float):
                 cons.append(_sym(cp.bmat([[np.ones((1, 1)), x0.T], [x0, Xs[i]]])) >> 0)
             for j in range(2):
                 cons.append(
-                    _sym(
-                        cp.bmat(
-                            [[lim * np.ones((1, 1)), Y[j : j + 1, :]], [Y[j : j + 1, :].T, _he(G) - Xs[i]]]
-                        )
-                    )
-                    >> 0
+                    _sym(cp.bmat([[lim * np.ones((1, 1)), Y[j : j + 1, :]], [Y[j : j + 1, :].T, _he(G) - Xs[i]]])) >> 0
                 )
     prob = cp.Problem(cp.Minimize(kappa), cons)
     solver, status = _solve(prob)
@@ -432,9 +428,7 @@ def _attempt(poly, spec, alpha, delta):
     return best, last, count
 
 
-def synthesize(
-    poly: Polytope, spec: Spec, *, delta: float = 1e-6, bisection_steps: int = 8
-) -> SynthesisResult:
+def synthesize(poly: Polytope, spec: Spec, *, delta: float = 1e-6, bisection_steps: int = 8) -> SynthesisResult:
     """Synthesize one gain for the whole polytope.
 
     Raises

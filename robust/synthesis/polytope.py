@@ -115,9 +115,7 @@ def sampled_hull(
     """
     if not box.ranges:
         m = reduced_model(box.plant(box.nominal[None, :]))
-        return Polytope(
-            "sampled_hull", np.eye(4)[None], m.A, m.B, "single model (no ranges)", {"dimension": 0}
-        )
+        return Polytope("sampled_hull", np.eye(4)[None], m.A, m.B, "single model (no ranges)", {"dimension": 0})
     ppa = points_per_axis or GRID_BY_RANGES.get(len(box.ranges), 2)
     pts = grid(box, ppa)
     m = reduced_model(box.plant(pts))
@@ -238,24 +236,24 @@ def moment_box(box: Box) -> Polytope:
     v = box.vehicle
     iv = {r.name: (r.low, r.high) for r in box.ranges}
 
-    def I(name):
+    def bounds(name):
         return iv.get(name, (get_parameter(v, name), get_parameter(v, name)))
 
     groups: list[np.ndarray] = []  # each: (vertices, columns) in the order of `cols`
     cols: list[str] = []
     for body in ("chassis", "payload"):
-        groups.append(_mass_height_vertices(I(f"{body}.mass_kg"), I(f"{body}.cg_height_m")))
+        groups.append(_mass_height_vertices(bounds(f"{body}.mass_kg"), bounds(f"{body}.cg_height_m")))
         cols += [f"{body}.m", f"{body}.mh", f"{body}.mh2"]
     # inertia terms about the body's own centre of mass: chassis as given; payload scales with its mass
     mp0 = v.payload.mass_kg
     for axis in ("pitch", "yaw"):
-        ci = I(f"chassis.{axis}_inertia_kg_m2")
+        ci = bounds(f"chassis.{axis}_inertia_kg_m2")
         groups.append(np.array(sorted({ci[0], ci[1]}))[:, None])
         cols.append(f"chassis.{axis}")
-        pi = I(f"payload.{axis}_inertia_kg_m2")
+        pi = bounds(f"payload.{axis}_inertia_kg_m2")
         if _ranged(box, "payload.mass_kg") and mp0 > 0:
             if _ranged(box, f"payload.{axis}_inertia_kg_m2"):
-                m = I("payload.mass_kg")
+                m = bounds("payload.mass_kg")
                 prods = [a / mp0 * b for a in m for b in pi]
                 groups.append(np.array(sorted({min(prods), max(prods)}))[:, None])
                 cols.append(f"payload.{axis}")
@@ -264,11 +262,11 @@ def moment_box(box: Box) -> Polytope:
         else:
             groups.append(np.array(sorted({pi[0], pi[1]}))[:, None])
             cols.append(f"payload.{axis}")
-    kt = I("drive.torque_constant_n_m_per_a")
+    kt = bounds("drive.torque_constant_n_m_per_a")
     ktn = v.drive.torque_constant_n_m_per_a
     groups.append(np.array(sorted({kt[0] / ktn, kt[1] / ktn}))[:, None])
     cols.append("k")
-    cb = I("wheel.bearing_friction_n_m_s_per_rad")
+    cb = bounds("wheel.bearing_friction_n_m_s_per_rad")
     groups.append(np.array(sorted({cb[0], cb[1]}))[:, None])
     cols.append("c_b")
     combos = list(itertools.product(*[range(g.shape[0]) for g in groups]))
@@ -299,13 +297,9 @@ def moment_box(box: Box) -> Polytope:
     mats = descriptor_matrices(box, q)
     Ev = np.linalg.eigvalsh(mats["E"]).min(axis=1)
     if np.any(Ev <= 0):
-        raise ValueError(
-            "the moment polytope reaches a singular mass matrix; narrow the ranges or use 'sampled_hull'"
-        )
+        raise ValueError("the moment polytope reaches a singular mass matrix; narrow the ranges or use 'sampled_hull'")
     facts = {
-        "moment_intervals": {
-            n: [float(q[:, j].min()), float(q[:, j].max())] for j, n in enumerate(MOMENT_NAMES)
-        },
+        "moment_intervals": {n: [float(q[:, j].min()), float(q[:, j].max())] for j, n in enumerate(MOMENT_NAMES)},
         "moment_units": dict(zip(MOMENT_NAMES, MOMENT_UNITS)),
         "groups": cols,
         "smallest_mass_matrix_eigenvalue": float(Ev.min()),
