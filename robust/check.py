@@ -90,6 +90,8 @@ class GainCheck:
     verdicts: tuple[Verdict, ...]
     inputs: tuple[InputMargin, ...]
     passed: bool
+    corner_points: np.ndarray
+    corner_values: dict[str, np.ndarray]
 
 
 @dataclass(frozen=True)
@@ -239,6 +241,8 @@ def check_gain(
         verdicts=tuple(verdicts),
         inputs=inputs,
         passed=all(v.passed for v in verdicts),
+        corner_points=cpts,
+        corner_values=at_corners,
     )
 
 

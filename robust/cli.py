@@ -113,6 +113,33 @@ def _synthesize(args: argparse.Namespace) -> int:
     return 0 if d.check.gains[0].passed else 1
 
 
+def _dossier(args: argparse.Namespace) -> int:
+    from pathlib import Path
+
+    from robust.dossier import run_dossier, today
+    from robust.gains import read_gain_file
+    from robust.report.dossier import write_dossier
+    from robust.report.text import compare_text
+
+    case = load_case(args.case)
+    files = [read_gain_file(f) for f in args.gain_file or []]
+    data = run_dossier(case, gain_files=files, synthesize=not args.no_synthesis, progress=_progress(args.quiet))
+    out = Path(args.out) if args.out else Path("reports") / Path(args.case).stem
+    paths = write_dossier(data, out, today=today())
+    sys.stdout.write(compare_text(data.check))
+    if data.time is not None:
+        verdicts = ", ".join(f"{g.gain.name}: {'PASS' if g.passed else 'FAIL'}" for g in data.time.gains)
+        sys.stdout.write(f"\nTime-domain verdicts: {verdicts}\n")
+    if data.design_error:
+        sys.stdout.write(f"\nSynthesis: {data.design_error}\n")
+    sys.stdout.write(
+        f"\nDossier written to {paths['folder']}/ (dossier.html, dossier.pdf, dossier.md, "
+        "results.json, tables/*.csv, figures/*.svg)\n"
+    )
+    ok = data.check.passed and (data.time is None or data.time.passed)
+    return 0 if ok else 1
+
+
 def _nonneg_int(text: str) -> int:
     v = _seed(text)
     return v
@@ -201,6 +228,17 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--quiet", action="store_true", help="no progress messages")
     p.add_argument("--json", action="store_true", help="print JSON instead of text")
     p.set_defaults(func=_synthesize)
+
+    p = sub.add_parser(
+        "dossier",
+        help="the design dossier of a case: every analysis, figures, verdicts, as HTML, PDF, Markdown, CSV and JSON",
+    )
+    p.add_argument("case", help="case file (TOML)")
+    p.add_argument("--gain-file", action="append", metavar="PATH", help="gain file to include (repeatable)")
+    p.add_argument("--out", metavar="DIR", help="output folder (default reports/<case name>)")
+    p.add_argument("--no-synthesis", action="store_true", help="leave out the LMI synthesis the case asks for")
+    p.add_argument("--quiet", action="store_true", help="no progress messages")
+    p.set_defaults(func=_dossier)
     return parser
 
 

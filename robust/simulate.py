@@ -147,6 +147,7 @@ class Trace:
     current: np.ndarray
     speed_ref: np.ndarray
     yaw_rate_ref: np.ndarray
+    spin: np.ndarray
 
 
 @dataclass(frozen=True)
@@ -256,7 +257,7 @@ def simulate(
     yaw_resp = _Response(n, 0.02)
     counted = 0
     env_rows: list[np.ndarray] = []
-    rec: dict[str, list] = {k: [] for k in ("t", "state", "command", "torque", "current", "v", "w")}
+    rec: dict[str, list] = {k: [] for k in ("t", "state", "command", "torque", "current", "v", "w", "spin")}
     idx = np.array(REDUCED_INDEX)
 
     def measure(xx, cmd, live):
@@ -310,6 +311,7 @@ def simulate(
                         )
                         env_rows.append(np.stack([row.min(0), np.median(row, 0), row.max(0)]))
                     if trace:
+                        rec["spin"].append(_spin(plant, x))
                         for key, val in (
                             ("t", t),
                             ("state", x.copy()),
@@ -386,6 +388,7 @@ def simulate(
             current=np.stack(rec["current"], 1),
             speed_ref=np.stack(rec["v"], 1),
             yaw_rate_ref=np.stack(rec["w"], 1),
+            spin=np.stack(rec["spin"], 1),
         )
     return SimResult(
         manoeuvre=manoeuvre.name, metrics=metrics, fell=fell, fall_time_s=fall_time, envelope=env, trace=tr

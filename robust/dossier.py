@@ -1,0 +1,134 @@
+"""The dossier command's computation: every analysis of a case, gathered for the writer.
+
+Model facts, the linear check of every gain set (the case's, gain files, and
+the LMI gain when the case asks for synthesis), the time-domain check, and
+the per-sample values the figures need.  Writes nothing.
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+import importlib.metadata as _md
+import platform
+from collections.abc import Callable
+from dataclasses import dataclass
+
+import numpy as np
+
+from robust import __version__
+from robust.analysis.eigen import eigenvalues_4x4
+from robust.analysis.metrics import evaluate
+from robust.case import Case, resolve_gain
+from robust.check import CheckResult, run_check
+from robust.gains import GainSet
+from robust.linear import reduced_model
+from robust.modelfacts import ModelFacts, model_facts
+from robust.timecheck import TimeCheckResult, run_time_check
+from robust.uncertainty import corners, plan_points
+
+Progress = Callable[[str], None]
+PACKAGES = ("numpy", "scipy", "control", "cvxpy", "clarabel", "scs", "matplotlib")
+
+
+@dataclass(frozen=True)
+class DossierData:
+    """Everything a dossier shows."""
+
+    case: Case
+    stamp: dict
+    facts: ModelFacts
+    check: CheckResult
+    time: TimeCheckResult | None
+    design: object | None
+    design_error: str | None
+    eigenvalues: dict[str, np.ndarray]
+    sample_values: dict[str, dict[str, np.ndarray]]
+
+
+def stamp(case: Case) -> dict:
+    """Reproducibility stamp (the date is kept apart so results files stay byte-identical)."""
+    versions = {}
+    for p in PACKAGES:
+        try:
+            versions[p] = _md.version(p)
+        except _md.PackageNotFoundError:
+            versions[p] = "not installed"
+    return {
+        "tool": "robust",
+        "tool_version": __version__,
+        "case_file": case.source,
+        "case_sha256": case.sha256,
+        "plan": case.study.plan,
+        "samples": case.study.samples,
+        "seed": case.study.seed,
+        "simulation_samples": case.study.simulation_samples,
+        "python": platform.python_version(),
+        "packages": versions,
+    }
+
+
+def run_dossier(
+    case: Case,
+    *,
+    gain_files: list[GainSet] | None = None,
+    synthesize: bool = True,
+    progress: Progress | None = None,
+) -> DossierData:
+    """Run every analysis the dossier reports."""
+    say = progress or (lambda _m: None)
+    say("model facts")
+    facts = model_facts(case)
+    gains = [resolve_gain(case, s) for s in case.gains] + list(gain_files or [])
+    design = None
+    design_error = None
+    if synthesize and case.synthesis and case.box.ranges:
+        from robust.design import design as run_design
+        from robust.synthesis.lmi import Infeasible
+
+        say("LMI synthesis")
+        try:
+            design = run_design(case, progress=None, compare_with=[])
+            gains = [design.gain, *gains]
+        except Infeasible as exc:
+            design_error = str(exc)
+    if not gains:
+        raise ValueError("the dossier needs at least one gain set: add [gains.NAME], [synthesis] or a gain file")
+    say(f"linear check of {len(gains)} gain sets")
+    check = run_check(case, gains, progress=progress)
+    time = None
+    if case.manoeuvres:
+        say("time-domain check")
+        time = run_time_check(case, gains, progress=progress)
+    pts = np.concatenate(
+        [
+            corners(case.box),
+            plan_points(
+                case.box,
+                case.study.plan,
+                samples=case.study.samples,
+                seed=case.study.seed,
+                grid_points=case.study.grid_points,
+            ),
+        ]
+    )
+    model = reduced_model(case.box.plant(pts))
+    eigs = {g.name: eigenvalues_4x4(model.A - model.B @ g.K) for g in gains}
+    values = {
+        g.name: evaluate(case.box, pts, g.K, names=("disk_margin", "phase_margin", "delay_margin")) for g in gains
+    }
+    return DossierData(
+        case=case,
+        stamp=stamp(case),
+        facts=facts,
+        check=check,
+        time=time,
+        design=design,
+        design_error=design_error,
+        eigenvalues=eigs,
+        sample_values=values,
+    )
+
+
+def today() -> str:
+    """The date shown in the dossier's documents (not in its results files)."""
+    return _dt.date.today().isoformat()

@@ -1,0 +1,751 @@
+"""Writing a dossier: Markdown, self-contained HTML, PDF, CSV tables and one JSON file.
+
+The content is built once as a list of blocks (headings, paragraphs, tables,
+figures) and rendered to every format.  All files are written into a
+temporary folder beside the target and moved into place at the end, so a
+failed run never leaves a half-written dossier that looks complete.
+"""
+
+from __future__ import annotations
+
+import csv
+import html
+import io
+import os
+import shutil
+import tempfile
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+
+from robust.analysis.metrics import METRICS
+from robust.dynamics import torque_envelope
+from robust.report import figures as F
+from robust.report.jsonout import dumps
+from robust.report.text import fmt
+from robust.vehicle import PARAMETERS, get_parameter, plant_batch
+
+SAFETY = [
+    "These vehicles carry people and goods among people. This dossier analyses a model; "
+    "analysis of a model is not a safety case.",
+    "Validate every gain on hardware, first with the vehicle restrained (tethers or stands, a spotter, "
+    "no rider), then over stepwise wider operating ranges, before any rider uses it.",
+    "Defer to the applicable standards for personal transporters and mobile robots, to local codes, "
+    "and to licensed engineering practice; a design reviewed by a qualified engineer takes precedence "
+    "over any number in this dossier.",
+]
+ASSUMPTIONS = [
+    "flat, level ground; rigid wheels rolling without slip; no wheel lift",
+    "rigid bodies; chassis and payload composed into one body whose centre of mass lies on the vertical "
+    "through the axle midpoint; principal axes aligned with the vehicle",
+    "payload inertias scale with the payload mass (constant radii of gyration)",
+    "drive: torque = actual torque constant x current; current clipped by the current limit and by the "
+    "voltage left after back-EMF; no current-loop dynamics, no gear backlash or compliance",
+    "linear analysis at upright, zero speed; sampled-data effects (period, latency) appear only in the "
+    "time-domain simulation",
+    "parameters constant during a run except where a common-Lyapunov certificate says otherwise",
+]
+
+
+@dataclass
+class Table:
+    title: str
+    headers: list[str]
+    rows: list[list[str]]
+    csv_name: str | None = None
+    note: str = ""
+
+
+@dataclass
+class Figure:
+    name: str
+    svg: str
+    caption: str
+    mpl: object = None
+
+
+def _h(level, text):
+    return ("h", level, text)
+
+
+def _p(text):
+    return ("p", text)
+
+
+def _vehicle_table(case) -> Table:
+    rows = []
+    for name, info in PARAMETERS.items():
+        rows.append([name, fmt(get_parameter(case.vehicle, name), 5), info.unit, info.text])
+    return Table("Nominal vehicle", ["parameter", "value", "unit", "meaning"], rows, "vehicle")
+
+
+def _ranges_table(case) -> Table:
+    rows = []
+    for r in case.box.ranges:
+        info = PARAMETERS[r.name]
+        shape = r.distribution
+        if r.distribution == "triangular":
+            shape += f" (mode {fmt(r.mode)})"
+        if r.distribution == "normal":
+            shape += f" (mean {fmt(r.mode)}, std {fmt(r.std)}, truncated)"
+        rows.append([r.name, fmt(r.low), fmt(get_parameter(case.vehicle, r.name)), fmt(r.high), info.unit, shape])
+    return Table("Uncertainty ranges", ["parameter", "low", "nominal", "high", "unit", "distribution"], rows, "ranges")
+
+
+def _blocks(d, today: str) -> tuple[list, list[Figure]]:
+    case, chk, tm = d.case, d.check, d.time
+    B: list = []
+    figs: list[Figure] = []
+    st = d.stamp
+    B.append(_h(1, f"Design dossier: {case.title}"))
+    B.append(
+        _p(f"Generated {today} by robust {st['tool_version']} from {st['case_file']} (SHA-256 {st['case_sha256']}).")
+    )
+    B.append(_h(2, "Safety cautions"))
+    B += [_p(s) for s in SAFETY]
+    B.append(_h(2, "Model assumptions and limits"))
+    B += [_p("- " + a) for a in ASSUMPTIONS]
+    B.append(_h(2, "Reproducibility stamp"))
+    rows = [[k, str(v)] for k, v in st.items() if k != "packages"]
+    rows += [[f"package {k}", v] for k, v in st["packages"].items()]
+    B.append(Table("Stamp", ["item", "value"], rows, "stamp"))
+    # case summary
+    B.append(_h(2, "Case summary"))
+    B.append(_vehicle_table(case))
+    if case.box.ranges:
+        B.append(_ranges_table(case))
+    if case.requirements:
+        units = {m.requirement: m.unit for m in METRICS.values()}
+        B.append(
+            Table(
+                "Requirements",
+                ["requirement", "bound", "unit"],
+                [[k, fmt(v), units.get(k, "")] for k, v in case.requirements.items()],
+                "requirements",
+            )
+        )
+    s = case.study
+    B.append(
+        Table(
+            "Study",
+            ["item", "value"],
+            [
+                ["plan", s.plan],
+                ["samples", str(s.samples)],
+                ["seed", str(s.seed)],
+                ["confidence", fmt(s.confidence)],
+                ["worst-case search", str(s.search)],
+                ["simulation samples (besides corners)", str(s.simulation_samples)],
+                ["controller period [ms]", fmt(case.controller.sample_period_s * 1e3)],
+                ["controller latency [ms]", fmt(case.controller.latency_s * 1e3)],
+                ["fall angle [deg]", fmt(np.degrees(case.controller.fall_angle_rad))],
+                ["friction trim", str(case.controller.trim)],
+            ],
+            "study",
+        )
+    )
+    if case.manoeuvres:
+        rows = []
+        for m in case.manoeuvres:
+            rows.append(
+                [
+                    m.name,
+                    m.kind,
+                    fmt(m.duration_s),
+                    fmt(m.start_s),
+                    fmt(m.speed_m_s),
+                    fmt(m.yaw_rate_rad_s),
+                    fmt(m.push_force_n),
+                    fmt(np.degrees(m.initial_pitch_rad)),
+                ]
+            )
+        B.append(
+            Table(
+                "Manoeuvres",
+                [
+                    "name",
+                    "kind",
+                    "duration [s]",
+                    "start [s]",
+                    "speed [m/s]",
+                    "yaw rate [rad/s]",
+                    "push [N]",
+                    "initial pitch [deg]",
+                ],
+                rows,
+                "manoeuvres",
+            )
+        )
+    # model facts
+    f = d.facts
+    B.append(_h(2, "Model facts"))
+    B.append(
+        Table(
+            "Open loop (nominal)",
+            ["quantity", "value", "unit"],
+            [
+                ["composite mass", fmt(f.composite["mass_kg"]), "kg"],
+                ["composite centre-of-mass height", fmt(f.composite["cg_height_m"]), "m"],
+                ["open-loop poles", ", ".join(fmt(p) for p in f.poles), "1/s"],
+                ["pitch divergence rate", fmt(f.unstable_pole), "1/s"],
+                ["time to double", fmt(f.time_to_double_s * 1e3), "ms"],
+                ["controllability rank, full 7-state model", f"{f.full_rank} of 7", ""],
+                ["controllability rank, reduced 4-state model", f"{f.reduced_rank} of 4", ""],
+                ["state shift for commands", "exact" if f.shift_exact else "not exact (trim torque needed)", ""],
+                ["trim torque per wheel per m/s", fmt(f.trim_per_speed_n_m_s), "N m s/m"],
+            ],
+            "model_facts",
+        )
+    )
+    for mode, why in f.uncontrollable:
+        B.append(
+            _p(
+                f"Uncontrollable mode at s = {fmt(mode.eigenvalue)}: {why}. Position x and heading are "
+                "controllable integrators of speed and yaw rate; the balance controller leaves them to an outer "
+                "loop, so they are dropped with y and the reduced model keeps speed, yaw rate, pitch and pitch rate."
+            )
+        )
+    if f.corners is not None:
+        c = f.corners
+        worst = int(np.argmax(c.unstable_pole))
+        rows = [
+            [
+                str(i + 1),
+                *(fmt(v) for v in pt),
+                fmt(c.unstable_pole[i]),
+                fmt(c.time_to_double_s[i] * 1e3),
+                f"{c.reduced_rank[i]}/4",
+                "<- fastest" if i == worst else "",
+            ]
+            for i, pt in enumerate(c.points)
+        ]
+        B.append(
+            Table(
+                "Open-loop divergence at the box corners",
+                ["corner", *c.names, "divergence [1/s]", "time to double [ms]", "rank", "note"],
+                rows,
+                "open_loop_corners",
+            )
+        )
+    # comparison
+    B.append(_h(2, "Gain sets side by side"))
+    names = [g.gain.name for g in chk.gains]
+    rows = []
+    for k, s0 in enumerate(chk.gains[0].summaries):
+        vals = [g.summaries[k].worst.value for g in chk.gains]
+        worst = min(vals) if s0.kind == "min" else max(vals)
+        rows.append(
+            [
+                f"{s0.name} [{s0.unit}]",
+                *((fmt(v) + (" (worst)" if v == worst and len(set(vals)) > 1 else "")) for v in vals),
+            ]
+        )
+    for g in chk.gains:
+        pass
+    reqs = list(dict.fromkeys((v.requirement, v.metric) for g in chk.gains for v in g.verdicts))
+    for key in reqs:
+        cells = []
+        for g in chk.gains:
+            v = next((v for v in g.verdicts if (v.requirement, v.metric) == key), None)
+            cells.append("-" if v is None else ("pass" if v.passed else "FAIL") + f" ({fmt(v.margin, 3)})")
+        rows.append([f"{key[0]} ({key[1]})", *cells])
+    if tm is not None:
+        for key in list(dict.fromkeys(v.requirement for g in tm.gains for v in g.verdicts)):
+            cells = []
+            for g in tm.gains:
+                v = next((v for v in g.verdicts if v.requirement == key), None)
+                cells.append("-" if v is None else ("pass" if v.passed else "FAIL") + f" ({fmt(v.margin, 3)})")
+            rows.append([f"{key} (time domain)", *cells])
+    overall = []
+    for i, g in enumerate(chk.gains):
+        ok = g.passed and (tm is None or tm.gains[i].passed)
+        overall.append("PASS" if ok else "FAIL")
+    rows.append(["overall verdict", *overall])
+    B.append(
+        Table(
+            "Worst case over the box and verdicts (margin in brackets; negative fails)",
+            ["metric", *names],
+            rows,
+            "comparison",
+            note="'(worst)' marks the worst gain set for each metric.",
+        )
+    )
+    # synthesis
+    if d.design is not None:
+        ds = d.design
+        p, r = ds.polytope, ds.synthesis
+        B.append(_h(2, f"LMI synthesis of '{ds.gain.name}'"))
+        B.append(_p(f"Polytope route {p.route} with {p.vertices} vertices. Guarantee: {p.guarantee}."))
+        rows = [[k, fmt(v) if isinstance(v, float) else str(v)] for k, v in p.facts.items() if not isinstance(v, dict)]
+        rows += [
+            ["objective", r.spec.objective],
+            ["Lyapunov matrix", r.spec.lyapunov],
+            ["certified decay rate [1/s]", fmt(r.decay_rate)],
+            ["solver", f"{r.solver} ({r.status})"],
+            ["largest LMI eigenvalue at the vertices (numpy)", f"{r.certificate.smallest_slack:.3e}"],
+            ["smallest Lyapunov eigenvalue", f"{r.certificate.smallest_x_eig:.3e}"],
+            ["certificate", "valid" if r.certificate.passed else "NOT VALID"],
+        ]
+        B.append(Table("Synthesis and certificate", ["item", "value"], rows, "synthesis"))
+    elif d.design_error:
+        B.append(_h(2, "LMI synthesis"))
+        B.append(_p(f"The synthesis requested by the case could not be certified: {d.design_error}"))
+    # per gain set
+    for gi, g in enumerate(chk.gains):
+        B.append(_h(2, f"Gain set '{g.gain.name}' ({g.gain.origin})"))
+        units = ("N m s/m", "N m s/rad", "N m/rad", "N m s/rad")
+        B.append(
+            Table(
+                "Gain K (u = -K (x - x_ref))",
+                ["wheel", *(f"{s} [{u}]" for s, u in zip(("speed", "yaw_rate", "pitch", "pitch_rate"), units))],
+                [[w, *(fmt(v, 5) for v in row)] for w, row in zip(("left", "right"), g.gain.K)],
+                f"{g.gain.name}_gain",
+            )
+        )
+        prov = [[k, str(v)] for k, v in sorted(g.gain.provenance.items())]
+        if prov:
+            B.append(Table("Provenance", ["item", "value"], prov, None))
+        rows = []
+        for s in g.summaries:
+            pct = s.percentiles
+            rows.append(
+                [
+                    s.name,
+                    s.unit,
+                    fmt(s.nominal),
+                    fmt(s.worst_corner.value),
+                    "-" if s.worst_sample is None else fmt(s.worst_sample.value),
+                    "-" if s.worst_search is None else fmt(s.worst_search.value),
+                    fmt(s.worst.value) + f" ({s.worst.source})",
+                    *(fmt(pct.get(q, float("nan"))) if pct else "-" for q in ("p1", "p5", "p50", "p95", "p99")),
+                    ", ".join(f"{k}={fmt(v, 4)}" for k, v in s.worst.at.items()),
+                ]
+            )
+        B.append(
+            Table(
+                "Robustness summary (corners, Monte Carlo samples, search)",
+                [
+                    "metric",
+                    "unit",
+                    "nominal",
+                    "worst corner",
+                    "worst sample",
+                    "search",
+                    "worst",
+                    "p1",
+                    "p5",
+                    "p50",
+                    "p95",
+                    "p99",
+                    "worst at",
+                ],
+                rows,
+                f"{g.gain.name}_summary",
+            )
+        )
+        cv = g.corner_values
+        mnames = list(cv)
+        rows = []
+        for i, pt in enumerate(g.corner_points):
+            cells = []
+            for mname in mnames:
+                col = cv[mname]
+                m = METRICS[mname]
+                bad = int(np.argmin(col)) if m.kind == "min" else int(np.argmax(col))
+                cells.append(fmt(col[i]) + (" *" if i == bad else ""))
+            rows.append([str(i + 1), *(fmt(v) for v in pt), *cells])
+        B.append(
+            Table(
+                "Per corner (* = worst corner for that metric)",
+                ["corner", *chk.parameter_names, *mnames],
+                rows,
+                f"{g.gain.name}_corners",
+            )
+        )
+        keys = list(g.inputs[0].nominal)
+        B.append(
+            Table(
+                "Margins per wheel input (nominal | worst over corners and samples)",
+                ["margin", *(f"{i.wheel} wheel" for i in g.inputs)],
+                [[k, *(f"{fmt(i.nominal[k])} | {fmt(i.worst[k])}" for i in g.inputs)] for k in keys],
+                f"{g.gain.name}_margins",
+            )
+        )
+        rows = []
+        for v in g.verdicts:
+            ci = (
+                "-"
+                if v.failure_interval is None
+                else f"[{fmt(100 * v.failure_interval[0], 3)}%, {fmt(100 * v.failure_interval[1], 3)}%]"
+            )
+            rows.append(
+                [
+                    v.requirement,
+                    v.metric,
+                    fmt(v.threshold),
+                    fmt(v.worst),
+                    fmt(v.margin),
+                    "pass" if v.passed else "FAIL",
+                    f"{v.failures}/{v.samples}",
+                    ci,
+                ]
+            )
+        if rows:
+            B.append(
+                Table(
+                    "Requirement verdicts (linear)",
+                    [
+                        "requirement",
+                        "metric",
+                        "bound",
+                        "worst",
+                        "margin",
+                        "verdict",
+                        "failing samples",
+                        "P(fail) interval",
+                    ],
+                    rows,
+                    f"{g.gain.name}_verdicts",
+                )
+            )
+        if tm is not None:
+            tg = tm.gains[gi]
+            for m in tg.manoeuvres:
+                rows = [
+                    [
+                        w.name,
+                        w.unit,
+                        fmt(w.median),
+                        fmt(w.value),
+                        ", ".join(f"{k}={fmt(v, 4)}" for k, v in w.at.items()),
+                    ]
+                    for w in m.worst
+                ]
+                B.append(
+                    Table(
+                        f"Manoeuvre '{m.name}' ({m.kind}): {m.fell} of {m.models} models fell",
+                        ["metric", "unit", "median", "worst", "worst at"],
+                        rows,
+                        f"{g.gain.name}_{m.name}",
+                    )
+                )
+            rows = [
+                [
+                    s.kind,
+                    s.unit,
+                    fmt(float(np.median(s.survived))),
+                    fmt(s.worst),
+                    ", ".join(f"{k}={fmt(v, 4)}" for k, v in s.worst_at.items()),
+                ]
+                for s in tg.survivable
+            ]
+            B.append(
+                Table(
+                    "Survivable command steps (no fall, current limit never reached)",
+                    ["step", "unit", "median", "worst", "worst at"],
+                    rows,
+                    f"{g.gain.name}_survivable",
+                )
+            )
+            rows = [
+                [
+                    v.requirement,
+                    fmt(v.threshold),
+                    fmt(v.worst),
+                    v.unit,
+                    fmt(v.margin),
+                    "pass" if v.passed else "FAIL",
+                    f"{v.failures}/{v.models}",
+                ]
+                for v in tg.verdicts
+            ]
+            if rows:
+                B.append(
+                    Table(
+                        "Requirement verdicts (time domain)",
+                        ["requirement", "bound", "worst", "unit", "margin", "verdict", "failing runs"],
+                        rows,
+                        f"{g.gain.name}_time_verdicts",
+                    )
+                )
+    # figures
+    B.append(_h(2, "Figures"))
+    req = case.requirements
+    figs.append(
+        Figure(
+            "eigenvalues",
+            F.svg(F.eigenvalue_map(d.eigenvalues, req)),
+            "Closed-loop eigenvalues of every corner and sample, one marker per gain set; the shaded area "
+            "is the region the requirements ask for.",
+        )
+    )
+    figs.append(
+        Figure(
+            "margins",
+            F.svg(F.margin_distributions(d.sample_values, req)),
+            "Distributions of the loop-at-a-time margins over the samples; dashed line: required bound.",
+        )
+    )
+    if case.box.ranges:
+        worst = {s.name: s.worst.at for s in chk.gains[0].summaries}
+        figs.append(
+            Figure(
+                "worst_locations",
+                F.svg(F.worst_locations(case.box.names, case.box.low, case.box.high, worst)),
+                f"Where the worst case of each metric lies for '{chk.gains[0].gain.name}'.",
+            )
+        )
+    if tm is not None:
+        plant = plant_batch(case.vehicle)
+        v = case.vehicle
+        w = np.linspace(-1.2, 1.2, 200) * v.drive.supply_v / v.drive.back_emf_v_s_per_rad
+        env = torque_envelope(plant, w[None, :])
+        drive_env = {"speed": w, "low": env["low"][0], "high": env["high"][0]}
+        for gi, tg in enumerate(tm.gains):
+            if tg.manoeuvres:
+                m = tg.manoeuvres[0]
+                figs.append(
+                    Figure(
+                        f"{tg.gain.name}_envelope",
+                        F.svg(
+                            F.response_envelopes(
+                                m.envelope, m.worst_trace, drive_env, f"'{tg.gain.name}': {m.name} ({m.kind})"
+                            )
+                        ),
+                        f"Response envelopes of '{tg.gain.name}' in '{m.name}' (min / median / max over "
+                        "corners and samples), the worst sample's trace, and the drive's torque-speed "
+                        "envelope with that sample's path.",
+                    )
+                )
+            s = tg.survivable[0]
+            if case.box.ranges:
+                figs.append(
+                    Figure(
+                        f"{tg.gain.name}_survivable",
+                        F.svg(
+                            F.survivable_map(
+                                case.box.names, s.points, s.survived, s.unit, f"Survivable speed step, '{tg.gain.name}'"
+                            )
+                        ),
+                        f"Largest survivable speed step of every simulated model for '{tg.gain.name}'.",
+                    )
+                )
+    return B, figs
+
+
+def _md_table(t: Table) -> str:
+    def esc(x):
+        return str(x).replace("|", "\\|")
+
+    lines = [
+        f"**{t.title}**",
+        "",
+        "| " + " | ".join(esc(h) for h in t.headers) + " |",
+        "|" + "|".join("---" for _ in t.headers) + "|",
+    ]
+    lines += ["| " + " | ".join(esc(c) for c in r) + " |" for r in t.rows]
+    if t.note:
+        lines += ["", t.note]
+    return "\n".join(lines) + "\n"
+
+
+def render_markdown(blocks, figs) -> str:
+    out = []
+    for b in blocks:
+        if isinstance(b, Table):
+            out.append(_md_table(b))
+        elif b[0] == "h":
+            out.append("#" * b[1] + " " + b[2] + "\n")
+        else:
+            out.append(b[1] + "\n")
+    for f in figs:
+        out.append(f"![{f.caption}](figures/{f.name}.svg)\n\n*{f.caption}*\n")
+    return "\n".join(out)
+
+
+CSS = """body{font-family:sans-serif;max-width:1200px;margin:2em auto;padding:0 1em;color:#111}
+table{border-collapse:collapse;margin:0.5em 0 1.5em;font-size:0.85em}
+th,td{border:1px solid #999;padding:2px 6px;text-align:right}th{background:#eee}
+td:first-child,th:first-child{text-align:left}caption{font-weight:bold;text-align:left;padding:4px 0}
+.fail{font-weight:bold;text-decoration:underline}.caution{border:2px solid #000;padding:0.5em 1em}
+figure{margin:1em 0}figcaption{font-style:italic;font-size:0.9em}svg{max-width:100%;height:auto}"""
+
+
+def render_html(blocks, figs, title: str) -> str:
+    out = [
+        f"<!DOCTYPE html><html lang='en'><head><meta charset='utf-8'><title>{html.escape(title)}</title>"
+        f"<style>{CSS}</style></head><body>"
+    ]
+    in_caution = False
+    for b in blocks:
+        if isinstance(b, Table):
+            rows = []
+            for r in b.rows:
+                cells = []
+                for c in r:
+                    cls = (
+                        " class='fail'"
+                        if str(c).startswith("FAIL") or "(worst)" in str(c) or str(c).endswith(" *")
+                        else ""
+                    )
+                    cells.append(f"<td{cls}>{html.escape(str(c))}</td>")
+                rows.append("<tr>" + "".join(cells) + "</tr>")
+            head = "".join(f"<th>{html.escape(h)}</th>" for h in b.headers)
+            note = f"<p>{html.escape(b.note)}</p>" if b.note else ""
+            out.append(f"<table><caption>{html.escape(b.title)}</caption><tr>{head}</tr>{''.join(rows)}</table>{note}")
+        elif b[0] == "h":
+            if in_caution:
+                out.append("</div>")
+                in_caution = False
+            out.append(f"<h{b[1]}>{html.escape(b[2])}</h{b[1]}>")
+            if b[2] == "Safety cautions":
+                out.append("<div class='caution'>")
+                in_caution = True
+        else:
+            out.append(f"<p>{html.escape(b[1])}</p>")
+    if in_caution:
+        out.append("</div>")
+    for f in figs:
+        out.append(f"<figure>{f.svg}<figcaption>{html.escape(f.caption)}</figcaption></figure>")
+    out.append("</body></html>")
+    return "\n".join(out)
+
+
+def _text_table(t: Table, width: int) -> list[str]:
+    cols = list(zip(*([t.headers] + t.rows))) if t.rows else [[h] for h in t.headers]
+    widths = [min(max(len(str(c)) for c in col), 60) for col in cols]
+
+    def clip(s, w):
+        s = str(s)
+        return s if len(s) <= w else s[: w - 1] + "~"
+
+    lines = [t.title]
+    lines.append("  ".join(clip(h, w).ljust(w) for h, w in zip(t.headers, widths)))
+    lines.append("  ".join("-" * w for w in widths))
+    lines += ["  ".join(clip(c, w).ljust(w) for c, w in zip(r, widths)) for r in t.rows]
+    return [ln[:width] for ln in lines] + [""]
+
+
+def render_pdf(blocks, figs, path: Path) -> None:
+    """A printable PDF: text pages (monospace tables) then one figure per page (vector)."""
+    import textwrap
+
+    import matplotlib.pyplot as plt
+    from matplotlib.backends.backend_pdf import PdfPages
+
+    lines: list[str] = []
+    for b in blocks:
+        if isinstance(b, Table):
+            lines += _text_table(b, 150)
+        elif b[0] == "h":
+            lines += ["", b[2].upper() if b[1] <= 2 else b[2], ""]
+        else:
+            lines += textwrap.wrap(b[1], 140) + [""]
+    per_page = 78
+    with PdfPages(path, metadata={"Creator": "robust", "Producer": "robust", "CreationDate": None}) as pdf:
+        for start in range(0, len(lines), per_page):
+            fig = plt.figure(figsize=(11.69, 8.27))
+            fig.text(0.03, 0.97, "\n".join(lines[start : start + per_page]), family="monospace", fontsize=5.6, va="top")
+            pdf.savefig(fig)
+            plt.close(fig)
+        for f in figs:
+            fig = _svg_to_fig(f)
+            if fig is not None:
+                pdf.savefig(fig)
+                plt.close(fig)
+
+
+def _svg_to_fig(f: Figure):
+    return f.mpl
+
+
+def write_dossier(d, out_dir: Path, *, today: str) -> dict[str, Path]:
+    """Write every dossier file into ``out_dir`` atomically; returns the main file paths."""
+    out_dir = Path(out_dir)
+    blocks, figs = _blocks(d, today)
+    out_dir.parent.mkdir(parents=True, exist_ok=True)
+    tmp = Path(tempfile.mkdtemp(prefix=f".{out_dir.name}.", dir=out_dir.parent))
+    try:
+        (tmp / "tables").mkdir()
+        (tmp / "figures").mkdir()
+        for b in blocks:
+            if isinstance(b, Table) and b.csv_name:
+                buf = io.StringIO()
+                w = csv.writer(buf, lineterminator="\n")
+                w.writerow(b.headers)
+                w.writerows(b.rows)
+                (tmp / "tables" / f"{_safe(b.csv_name)}.csv").write_text(buf.getvalue(), encoding="utf-8")
+        for f in figs:
+            (tmp / "figures" / f"{_safe(f.name)}.svg").write_text(f.svg, encoding="utf-8")
+        (tmp / "dossier.md").write_text(render_markdown(blocks, figs), encoding="utf-8")
+        (tmp / "dossier.html").write_text(render_html(blocks, figs, d.case.title), encoding="utf-8")
+        results = {
+            "stamp": d.stamp,
+            "model": d.facts,
+            "check": d.check,
+            "time": d.time,
+            "synthesis": None if d.design is None else {"polytope": d.design.polytope, "result": d.design.synthesis},
+            "synthesis_error": d.design_error,
+        }
+        (tmp / "results.json").write_text(dumps(results), encoding="utf-8")
+        _pdf_with_figures(blocks, d, tmp / "dossier.pdf")
+        (tmp / "COMPLETE").write_text(f"dossier complete; generated {today}\n", encoding="utf-8")
+        old = None
+        if out_dir.exists():
+            old = out_dir.with_name(f".{out_dir.name}.old")
+            if old.exists():
+                shutil.rmtree(old)
+            os.replace(out_dir, old)
+        os.replace(tmp, out_dir)
+        if old is not None:
+            shutil.rmtree(old, ignore_errors=True)
+    except BaseException:
+        shutil.rmtree(tmp, ignore_errors=True)
+        raise
+    return {
+        "folder": out_dir,
+        "html": out_dir / "dossier.html",
+        "pdf": out_dir / "dossier.pdf",
+        "markdown": out_dir / "dossier.md",
+        "json": out_dir / "results.json",
+    }
+
+
+def _safe(name: str) -> str:
+    return "".join(c if c.isalnum() or c in "-_" else "_" for c in name)
+
+
+def _pdf_with_figures(blocks, d, path: Path) -> None:
+    """Render the PDF; figures are drawn again (vector) since SVG cannot be embedded by matplotlib."""
+    _b, figs = blocks, []
+    case, chk, tm = d.case, d.check, d.time
+    req = case.requirements
+    mpl_figs = [F.eigenvalue_map(d.eigenvalues, req), F.margin_distributions(d.sample_values, req)]
+    if case.box.ranges:
+        mpl_figs.append(
+            F.worst_locations(
+                case.box.names, case.box.low, case.box.high, {s.name: s.worst.at for s in chk.gains[0].summaries}
+            )
+        )
+    if tm is not None:
+        plant = plant_batch(case.vehicle)
+        v = case.vehicle
+        w = np.linspace(-1.2, 1.2, 200) * v.drive.supply_v / v.drive.back_emf_v_s_per_rad
+        env = torque_envelope(plant, w[None, :])
+        drive_env = {"speed": w, "low": env["low"][0], "high": env["high"][0]}
+        for tg in tm.gains:
+            if tg.manoeuvres:
+                m = tg.manoeuvres[0]
+                mpl_figs.append(
+                    F.response_envelopes(m.envelope, m.worst_trace, drive_env, f"'{tg.gain.name}': {m.name} ({m.kind})")
+                )
+            if case.box.ranges:
+                s = tg.survivable[0]
+                mpl_figs.append(
+                    F.survivable_map(
+                        case.box.names, s.points, s.survived, s.unit, f"Survivable speed step, '{tg.gain.name}'"
+                    )
+                )
+    figs = [Figure("", "", "", mpl=f) for f in mpl_figs]
+    render_pdf(blocks, figs, path)

@@ -1,0 +1,175 @@
+"""Dossier figures (matplotlib, Agg backend); each function returns a Figure.
+
+Colours come from matplotlib's default cycle; every series also has its own
+marker or line style and a legend entry, so no figure relies on colour alone.
+"""
+
+from __future__ import annotations
+
+import io
+
+import matplotlib
+
+matplotlib.use("Agg")
+import matplotlib.pyplot as plt  # noqa: E402
+import numpy as np  # noqa: E402
+from matplotlib.figure import Figure  # noqa: E402
+
+MARKERS = ("o", "s", "^", "D", "v", "P", "X")
+STYLES = ("-", "--", ":", "-.")
+plt.rcParams.update({"svg.hashsalt": "robust", "font.size": 9})
+
+
+def svg(fig: Figure) -> str:
+    """SVG text of a figure without the creation date (stable across runs)."""
+    buf = io.StringIO()
+    fig.savefig(buf, format="svg", metadata={"Date": None, "Creator": "robust"}, bbox_inches="tight")
+    plt.close(fig)
+    text = buf.getvalue()
+    return text[text.index("<svg") :]
+
+
+def eigenvalue_map(eigs: dict[str, np.ndarray], requirements: dict[str, float]) -> Figure:
+    """Closed-loop eigenvalues of all samples per gain set, with the required region shaded."""
+    fig, ax = plt.subplots(figsize=(7.0, 4.6))
+    allre = np.concatenate([e.real.ravel() for e in eigs.values()])
+    allim = np.concatenate([e.imag.ravel() for e in eigs.values()])
+    lo = min(float(np.percentile(allre, 0.5)) * 1.1, -1.0)
+    hi = max(float(allre.max()) * 1.1, 0.5)
+    ymax = max(float(np.abs(allim).max()) * 1.1, 1.0)
+    a = requirements.get("min_decay_rate_per_s")
+    z = requirements.get("min_damping_ratio")
+    w = requirements.get("max_natural_frequency_rad_s")
+    xs = np.linspace(lo, hi, 400)
+    ys = np.linspace(-ymax, ymax, 400)
+    X, Y = np.meshgrid(xs, ys)
+    ok = X < 0
+    if a is not None:
+        ok &= X <= -a
+    if z is not None:
+        ok &= -X >= z * np.hypot(X, Y)
+    if w is not None:
+        ok &= np.hypot(X, Y) <= w
+    ax.contourf(X, Y, ok.astype(float), levels=[0.5, 1.5], colors=["#d9ead3"], alpha=0.8)
+    ax.plot([], [], "s", color="#d9ead3", label="required region")
+    for k, (name, e) in enumerate(eigs.items()):
+        ax.plot(e.real.ravel(), e.imag.ravel(), MARKERS[k % len(MARKERS)], ms=2.5, alpha=0.5, label=name)
+    ax.axvline(0.0, color="k", lw=0.8)
+    ax.set_xlim(lo, hi)
+    ax.set_ylim(-ymax, ymax)
+    ax.set_xlabel("real part [1/s]")
+    ax.set_ylabel("imaginary part [rad/s]")
+    ax.set_title("Closed-loop eigenvalues over the box (corners and samples)")
+    ax.legend(loc="upper left", fontsize=8, markerscale=3)
+    ax.grid(True, lw=0.3)
+    return fig
+
+
+def margin_distributions(values: dict[str, dict[str, np.ndarray]], requirements: dict[str, float]) -> Figure:
+    """Histograms of disk, phase and delay margins per gain set, with the required bound."""
+    keys = (
+        ("disk_margin", "disk margin [-]", "min_disk_margin"),
+        ("phase_margin", "phase margin [deg]", "min_phase_margin_deg"),
+        ("delay_margin", "delay margin [ms]", "min_delay_margin_ms"),
+    )
+    fig, axes = plt.subplots(1, 3, figsize=(9.5, 3.2))
+    for ax, (key, label, req) in zip(axes, keys):
+        for k, (name, v) in enumerate(values.items()):
+            x = np.asarray(v[key])
+            x = x[np.isfinite(x)]
+            if x.size:
+                ax.hist(x, bins=40, histtype="step", lw=1.2, ls=STYLES[k % len(STYLES)], label=name)
+        if req in requirements:
+            ax.axvline(requirements[req], color="k", ls="--", lw=1.0, label="required")
+        ax.set_xlabel(label)
+        ax.set_ylabel("samples")
+        ax.grid(True, lw=0.3)
+    axes[0].legend(fontsize=7)
+    fig.suptitle("Loop-at-a-time margins over the samples (worst wheel input)")
+    fig.tight_layout()
+    return fig
+
+
+def response_envelopes(env, trace, drive_envelope: dict[str, np.ndarray], title: str) -> Figure:
+    """Min / median / max bands of speed, yaw rate, pitch and torque, the worst sample's
+    trace, and the drive's torque-speed envelope with the worst sample's path."""
+    fig, axes = plt.subplots(2, 3, figsize=(10.0, 5.6))
+    axes = axes.ravel()
+    labels = {
+        "speed": "speed [m/s]",
+        "yaw_rate": "yaw rate [rad/s]",
+        "pitch": "pitch [deg]",
+        "torque_left": "left torque [N m]",
+        "torque_right": "right torque [N m]",
+    }
+    idx = {"speed": 3, "yaw_rate": 4, "pitch": 5}
+    for ax, q in zip(axes, env.quantities):
+        j = env.quantities.index(q)
+        scale = np.degrees(1.0) if q == "pitch" else 1.0
+        ax.fill_between(env.t, env.low[:, j] * scale, env.high[:, j] * scale, alpha=0.3, label="min-max band")
+        ax.plot(env.t, env.median[:, j] * scale, "-", lw=1.2, label="median")
+        if q in idx:
+            ax.plot(trace.t, trace.state[0, :, idx[q]] * scale, "--", lw=1.0, label="worst sample")
+        else:
+            ax.plot(trace.t, trace.torque[0, :, 0 if q == "torque_left" else 1], "--", lw=1.0, label="worst sample")
+        ax.set_xlabel("time [s]")
+        ax.set_ylabel(labels[q])
+        ax.grid(True, lw=0.3)
+    axes[0].legend(fontsize=7)
+    ax = axes[5]
+    ax.plot(drive_envelope["speed"], drive_envelope["high"], "k-", lw=1.0, label="drive limit")
+    ax.plot(drive_envelope["speed"], drive_envelope["low"], "k-", lw=1.0)
+    spin = trace.spin[0]
+    ax.plot(spin[:, 0], trace.torque[0, :, 0], "--", lw=1.0, label="worst sample, left")
+    ax.plot(spin[:, 1], trace.torque[0, :, 1], ":", lw=1.0, label="worst sample, right")
+    ax.set_xlabel("wheel speed relative to body [rad/s]")
+    ax.set_ylabel("torque [N m]")
+    ax.legend(fontsize=7)
+    ax.grid(True, lw=0.3)
+    fig.suptitle(title)
+    fig.tight_layout()
+    return fig
+
+
+def survivable_map(names: tuple[str, ...], points: np.ndarray, survived: np.ndarray, unit: str, title: str) -> Figure:
+    """Survivable step over the first two ranged parameters (marker size and colour both encode it)."""
+    fig, ax = plt.subplots(figsize=(6.0, 4.2))
+    if points.shape[1] >= 2:
+        x, y = points[:, 0], points[:, 1]
+        ylab = names[1]
+    else:
+        x, y = points[:, 0], np.zeros(len(points))
+        ylab = "-"
+    s = 15 + 60 * (survived - survived.min()) / max(np.ptp(survived), 1e-12)
+    sc = ax.scatter(x, y, c=survived, s=s, cmap="viridis", edgecolors="k", linewidths=0.3)
+    i = int(np.argmin(survived))
+    ax.annotate(
+        f"worst {survived[i]:.3g} {unit}",
+        (x[i], y[i]),
+        xytext=(8, 8),
+        textcoords="offset points",
+        arrowprops={"arrowstyle": "->"},
+    )
+    fig.colorbar(sc, ax=ax, label=f"largest survivable step [{unit}]")
+    ax.set_xlabel(names[0] if names else "-")
+    ax.set_ylabel(ylab)
+    ax.set_title(title)
+    ax.grid(True, lw=0.3)
+    return fig
+
+
+def worst_locations(names: tuple[str, ...], low: np.ndarray, high: np.ndarray, worst: dict[str, dict]) -> Figure:
+    """Where each metric's worst case lies, in normalised box coordinates (one line per metric)."""
+    fig, ax = plt.subplots(figsize=(7.0, 3.8))
+    xs = np.arange(len(names))
+    for k, (metric, at) in enumerate(worst.items()):
+        u = [(at[n] - lo) / (hi - lo) if hi > lo else 0.5 for n, lo, hi in zip(names, low, high)]
+        ax.plot(xs, u, MARKERS[k % len(MARKERS)] + STYLES[k % len(STYLES)], lw=0.8, ms=5, label=metric)
+    ax.set_xticks(xs, [n.replace(".", "\n") for n in names])
+    ax.set_ylim(-0.05, 1.05)
+    ax.set_ylabel("position in range (0 = low, 1 = high)")
+    ax.set_title("Worst-case locations in the parameter box")
+    ax.legend(fontsize=6, ncol=2, loc="upper left", bbox_to_anchor=(1.0, 1.0))
+    ax.grid(True, lw=0.3)
+    fig.tight_layout()
+    return fig
