@@ -36,7 +36,7 @@ SAFETY = [
     "over any number in this dossier.",
 ]
 ASSUMPTIONS = [
-    "flat, level ground; rigid wheels rolling without slip; no wheel lift",
+    "flat, level ground; no slip (rigid wheels rolling); no wheel lift",
     "rigid bodies; chassis and payload composed into one body whose centre of mass lies on the vertical "
     "through the axle midpoint; principal axes aligned with the vehicle",
     "payload inertias scale with the payload mass (constant radii of gyration)",
@@ -241,8 +241,6 @@ def _blocks(d, today: str) -> tuple[list, list[Figure]]:
                 *((fmt(v) + (" (worst)" if v == worst and len(set(vals)) > 1 else "")) for v in vals),
             ]
         )
-    for g in chk.gains:
-        pass
     reqs = list(dict.fromkeys((v.requirement, v.metric) for g in chk.gains for v in g.verdicts))
     for key in reqs:
         cells = []
@@ -502,7 +500,7 @@ def _blocks(d, today: str) -> tuple[list, list[Figure]]:
         w = np.linspace(-1.2, 1.2, 200) * v.drive.supply_v / v.drive.back_emf_v_s_per_rad
         env = torque_envelope(plant, w[None, :])
         drive_env = {"speed": w, "low": env["low"][0], "high": env["high"][0]}
-        for gi, tg in enumerate(tm.gains):
+        for tg in tm.gains:
             if tg.manoeuvres:
                 m = tg.manoeuvres[0]
                 figs.append(

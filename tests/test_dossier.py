@@ -1,0 +1,85 @@
+"""The design dossier: contents, reproducibility, atomic writing, agreement with the check."""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+import pytest
+
+from robust.cli import main
+
+CASE = Path(__file__).resolve().parent / "data" / "small_cart.toml"
+
+
+@pytest.fixture(scope="module")
+def two_runs(tmp_path_factory):
+    base = tmp_path_factory.mktemp("dossier")
+    codes = [main(["dossier", str(CASE), "--out", str(base / name), "--quiet"]) for name in ("a", "b")]
+    return base / "a", base / "b", codes
+
+
+def test_files_written(two_runs):
+    a, _b, codes = two_runs
+    assert codes[0] in (0, 1)
+    for name in ("dossier.html", "dossier.pdf", "dossier.md", "results.json", "COMPLETE"):
+        assert (a / name).stat().st_size > 0, name
+    assert len(list((a / "tables").glob("*.csv"))) >= 10
+    assert len(list((a / "figures").glob("*.svg"))) >= 4
+    assert (a / "dossier.pdf").read_bytes().startswith(b"%PDF")
+
+
+def test_same_case_same_seed_identical_tables_and_json(two_runs):
+    a, b, _ = two_runs
+    assert (a / "results.json").read_bytes() == (b / "results.json").read_bytes()
+    names = sorted(p.name for p in (a / "tables").glob("*.csv"))
+    assert names == sorted(p.name for p in (b / "tables").glob("*.csv"))
+    for n in names:
+        assert (a / "tables" / n).read_bytes() == (b / "tables" / n).read_bytes(), n
+
+
+def test_safety_stamp_and_self_contained_html(two_runs):
+    a, _b, _ = two_runs
+    md = (a / "dossier.md").read_text()
+    html = (a / "dossier.html").read_text()
+    for text in (md, html):
+        assert "analysis of a model is not a safety case" in text
+        assert "restrained" in text and "licensed engineering practice" in text
+        assert "no slip" in text
+    data = json.loads((a / "results.json").read_text())
+    assert data["stamp"]["case_sha256"] in md
+    assert set(data["stamp"]["packages"]) >= {"numpy", "scipy", "control", "cvxpy", "clarabel", "matplotlib"}
+    assert "<svg" in html and "src=\"http" not in html and "href=\"http" not in html
+
+
+def test_dossier_numbers_equal_check_numbers(two_runs, capsys):
+    a, _b, _ = two_runs
+    dossier = json.loads((a / "results.json").read_text())["check"]
+    main(["check", str(CASE), "--json", "--quiet"])
+    check = json.loads(capsys.readouterr().out)
+    by_name = {g["gain"]["name"]: g for g in dossier["gains"]}
+    for g in check["gains"]:
+        d = by_name[g["gain"]["name"]]
+        assert d["summaries"] == g["summaries"]
+        assert d["verdicts"] == g["verdicts"]
+
+
+def test_failed_run_keeps_previous_dossier(two_runs, monkeypatch, tmp_path):
+    import shutil
+
+    import robust.report.dossier as rd
+
+    a, _b, _ = two_runs
+    target = tmp_path / "keep"
+    shutil.copytree(a, target)
+    before = {p.relative_to(target): p.read_bytes() for p in target.rglob("*") if p.is_file()}
+
+    def boom(*args, **kwargs):
+        raise RuntimeError("disk full (simulated)")
+
+    monkeypatch.setattr(rd, "render_pdf", boom)
+    with pytest.raises(RuntimeError):
+        main(["dossier", str(CASE), "--out", str(target), "--quiet", "--no-synthesis"])
+    after = {p.relative_to(target): p.read_bytes() for p in target.rglob("*") if p.is_file()}
+    assert after == before
+    assert [p.name for p in tmp_path.iterdir()] == ["keep"]  # no half-written folder left beside it
