@@ -30,38 +30,48 @@ def svg(fig: Figure) -> str:
 
 
 def eigenvalue_map(eigs: dict[str, np.ndarray], requirements: dict[str, float]) -> Figure:
-    """Closed-loop eigenvalues of all samples per gain set, with the required region shaded."""
-    fig, ax = plt.subplots(figsize=(7.0, 4.6))
+    """Closed-loop eigenvalues of all samples per gain set, with the required region shaded.
+
+    Left: the whole spectrum; right: a zoom on the slowest poles, where the
+    decay-rate and damping requirements bite.
+    """
+    fig, axes = plt.subplots(1, 2, figsize=(10.0, 4.4))
     allre = np.concatenate([e.real.ravel() for e in eigs.values()])
     allim = np.concatenate([e.imag.ravel() for e in eigs.values()])
-    lo = min(float(np.percentile(allre, 0.5)) * 1.1, -1.0)
-    hi = max(float(allre.max()) * 1.1, 0.5)
-    ymax = max(float(np.abs(allim).max()) * 1.1, 1.0)
     a = requirements.get("min_decay_rate_per_s")
     z = requirements.get("min_damping_ratio")
     w = requirements.get("max_natural_frequency_rad_s")
-    xs = np.linspace(lo, hi, 400)
-    ys = np.linspace(-ymax, ymax, 400)
-    X, Y = np.meshgrid(xs, ys)
-    ok = X < 0
-    if a is not None:
-        ok &= X <= -a
-    if z is not None:
-        ok &= -X >= z * np.hypot(X, Y)
-    if w is not None:
-        ok &= np.hypot(X, Y) <= w
-    ax.contourf(X, Y, ok.astype(float), levels=[0.5, 1.5], colors=["#d9ead3"], alpha=0.8)
-    ax.plot([], [], "s", color="#d9ead3", label="required region")
-    for k, (name, e) in enumerate(eigs.items()):
-        ax.plot(e.real.ravel(), e.imag.ravel(), MARKERS[k % len(MARKERS)], ms=2.5, alpha=0.5, label=name)
-    ax.axvline(0.0, color="k", lw=0.8)
-    ax.set_xlim(lo, hi)
-    ax.set_ylim(-ymax, ymax)
-    ax.set_xlabel("real part [1/s]")
-    ax.set_ylabel("imaginary part [rad/s]")
-    ax.set_title("Closed-loop eigenvalues over the box (corners and samples)")
-    ax.legend(loc="upper left", fontsize=8, markerscale=3)
-    ax.grid(True, lw=0.3)
+    full = (min(float(allre.min()) * 1.05, -1.0), max(float(allre.max()) * 1.1, 0.5),
+            max(float(np.abs(allim).max()) * 1.1, 1.0))
+    zx = max(4.0 * (a or 0.0), 3.0)
+    zoom = (-zx, 0.3 * zx, zx)
+    for ax, (lo, hi, ymax), title in zip(axes, (full, zoom), ("all poles", "slowest poles (zoom)")):
+        xs = np.linspace(lo, hi, 400)
+        ys = np.linspace(-ymax, ymax, 400)
+        X, Y = np.meshgrid(xs, ys)
+        ok = X < 0
+        if a is not None:
+            ok &= X <= -a
+        if z is not None:
+            ok &= -X >= z * np.hypot(X, Y)
+        if w is not None:
+            ok &= np.hypot(X, Y) <= w
+        ax.contourf(X, Y, ok.astype(float), levels=[0.5, 1.5], colors=["#d9ead3"], alpha=0.8)
+        ax.plot([], [], "s", color="#d9ead3", label="required region")
+        for k, (name, e) in enumerate(eigs.items()):
+            ax.plot(e.real.ravel(), e.imag.ravel(), MARKERS[k % len(MARKERS)], ms=2.5, alpha=0.5, label=name)
+        ax.axvline(0.0, color="k", lw=0.8)
+        if a:
+            ax.axvline(-a, color="k", ls="--", lw=0.8)
+        ax.set_xlim(lo, hi)
+        ax.set_ylim(-ymax, ymax)
+        ax.set_xlabel("real part [1/s]")
+        ax.set_ylabel("imaginary part [rad/s]")
+        ax.set_title(title)
+        ax.grid(True, lw=0.3)
+    axes[0].legend(loc="upper left", fontsize=7, markerscale=3)
+    fig.suptitle("Closed-loop eigenvalues over the box (corners and samples)")
+    fig.tight_layout()
     return fig
 
 
