@@ -49,7 +49,7 @@ def test_safety_stamp_and_self_contained_html(two_runs):
     data = json.loads((a / "results.json").read_text())
     assert data["stamp"]["case_sha256"] in md
     assert set(data["stamp"]["packages"]) >= {"numpy", "scipy", "control", "cvxpy", "clarabel", "matplotlib"}
-    assert "<svg" in html and "src=\"http" not in html and "href=\"http" not in html
+    assert "<svg" in html and 'src="http' not in html and 'href="http' not in html
 
 
 def test_dossier_numbers_equal_check_numbers(two_runs, capsys):

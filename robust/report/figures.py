@@ -41,8 +41,11 @@ def eigenvalue_map(eigs: dict[str, np.ndarray], requirements: dict[str, float]) 
     a = requirements.get("min_decay_rate_per_s")
     z = requirements.get("min_damping_ratio")
     w = requirements.get("max_natural_frequency_rad_s")
-    full = (min(float(allre.min()) * 1.05, -1.0), max(float(allre.max()) * 1.1, 0.5),
-            max(float(np.abs(allim).max()) * 1.1, 1.0))
+    full = (
+        min(float(allre.min()) * 1.05, -1.0),
+        max(float(allre.max()) * 1.1, 0.5),
+        max(float(np.abs(allim).max()) * 1.1, 1.0),
+    )
     zx = max(4.0 * (a or 0.0), 3.0)
     zoom = (-zx, 0.3 * zx, zx)
     for ax, (lo, hi, ymax), title in zip(axes, (full, zoom), ("all poles", "slowest poles (zoom)")):

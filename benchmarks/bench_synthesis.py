@@ -1,0 +1,56 @@
+"""Time of the LMI synthesis with the certificate check, and its growth with the vertex count.
+
+    python benchmarks/bench_synthesis.py
+
+1. The bundled transporter case (3 uncertain parameters), rigorous moment_box route,
+   decay-rate and damping constraints, smallest-gain objective: wall time of one
+   synthesis including the numpy certificate check.
+2. Sampled-hull polytopes thinned to 8, 16, 32 and 64 vertices: time per synthesis and the
+   ratio to the 8-vertex time (linear growth would double with each step).
+"""
+
+from __future__ import annotations
+
+import sys
+import time
+from dataclasses import replace
+from pathlib import Path
+
+import numpy as np
+
+ROOT = Path(__file__).resolve().parents[1]
+sys.path.insert(0, str(ROOT))
+
+from robust.case import load_case  # noqa: E402
+from robust.design import make_spec  # noqa: E402
+from robust.synthesis.lmi import synthesize  # noqa: E402
+from robust.synthesis.polytope import Polytope, moment_box, sampled_hull  # noqa: E402
+
+
+def main() -> None:
+    case = load_case(ROOT / "cases" / "stand_up_transporter.toml")
+    spec = replace(make_spec(case), objective="gain", max_frequency=None)
+    poly = moment_box(case.box)
+    t = time.perf_counter()
+    r = synthesize(poly, spec)
+    dt = time.perf_counter() - t
+    print(
+        f"1. moment_box, {poly.vertices} vertices: {dt:.2f} s (target < 2 s); certificate "
+        f"{'valid' if r.certificate.passed else 'NOT valid'}, largest LMI eigenvalue {r.certificate.smallest_slack:.2e}"
+    )
+    hull = sampled_hull(case.box)
+    rng = np.random.default_rng(0)
+    base = None
+    print("2. growth with the number of vertices (sampled hull, subsets of its vertices)")
+    for m in (8, 16, 32, 64):
+        idx = rng.choice(hull.vertices, size=min(m, hull.vertices), replace=False)
+        sub = Polytope("sampled_hull", hull.E[idx], hull.A[idx], hull.B[idx], "", {})
+        t = time.perf_counter()
+        synthesize(sub, spec)
+        dt = time.perf_counter() - t
+        base = base or dt
+        print(f"  {m:3d} vertices: {dt:6.2f} s  ({dt / base:4.1f}x the 8-vertex time; linear would be {m / 8:.0f}x)")
+
+
+if __name__ == "__main__":
+    main()
