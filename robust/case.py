@@ -620,7 +620,7 @@ def resolve_gain(case: Case, spec: GainSpec):
     """
     from robust.gains import GainSet, read_gain_file
     from robust.linear import reduced_model
-    from robust.synthesis.nominal import bryson_weights, lqr, place
+    from robust.synthesis.nominal import bryson_from_keys, lqr, place
 
     path = f"gains.{spec.name}"
     nominal = reduced_model(plant_batch(case.vehicle))
@@ -643,18 +643,7 @@ def resolve_gain(case: Case, spec: GainSpec):
                 Q = np.diag(spec.data["state_weights"])
                 R = np.diag(spec.data["input_weights"])
             else:
-                d = spec.data
-                w = bryson_weights(
-                    np.array(
-                        [
-                            d["max_speed_error_m_s"],
-                            d["max_yaw_rate_error_rad_s"],
-                            np.radians(d["max_pitch_deg"]),
-                            np.radians(d["max_pitch_rate_deg_s"]),
-                        ]
-                    ),
-                    np.array([d["max_torque_n_m"]] * 2),
-                )
+                w = bryson_from_keys(spec.data)
                 Q, R = w["Q"], w["R"]
             K = lqr(A, B, Q, R)["K"]
             prov |= {"state_weights": np.diag(Q).tolist(), "input_weights": np.diag(R).tolist()}

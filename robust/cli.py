@@ -56,7 +56,14 @@ def _check(args: argparse.Namespace) -> int:
         search=False if args.no_search else None,
     )
     result = run_check(case, gains, study=study, progress=_progress(args.quiet))
-    sys.stdout.write(dumps(result) if args.json else check_text(result))
+    if args.json:
+        sys.stdout.write(dumps(result))
+    elif args.compare:
+        from robust.report.text import compare_text
+
+        sys.stdout.write(compare_text(result))
+    else:
+        sys.stdout.write(check_text(result))
     return 0 if result.passed else 1
 
 
@@ -196,6 +203,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--gain", action="append", metavar="NAME", help="gain set from the case (repeatable; default all)")
     p.add_argument("--gain-file", action="append", metavar="PATH", help="gain file to check as well (repeatable)")
     _study_options(p)
+    p.add_argument("--compare", action="store_true", help="one column per gain set instead of one block each")
     p.add_argument("--json", action="store_true", help="print JSON instead of text")
     p.set_defaults(func=_check)
 

@@ -19,7 +19,7 @@ from robust.case import Case
 from robust.check import CheckResult, run_check
 from robust.gains import GainSet
 from robust.synthesis.lmi import Spec, SynthesisResult, synthesize
-from robust.synthesis.nominal import bryson_weights
+from robust.synthesis.nominal import bryson_from_keys
 from robust.synthesis.polytope import Polytope, build_polytope
 
 Progress = Callable[[str], None]
@@ -54,17 +54,7 @@ def make_spec(case: Case, overrides: dict | None = None) -> Spec:
     objective = opts.get("objective", "gain")
     Q = R = xs = None
     if objective == "cost":
-        w = bryson_weights(
-            np.array(
-                [
-                    opts["max_speed_error_m_s"],
-                    opts["max_yaw_rate_error_rad_s"],
-                    np.radians(opts["max_pitch_deg"]),
-                    np.radians(opts["max_pitch_rate_deg_s"]),
-                ]
-            ),
-            np.array([opts["max_torque_n_m"]] * 2),
-        )
+        w = bryson_from_keys(opts)
         Q, R = w["Q"], w["R"]
         xs = _initial_states(opts)
         if xs is None:

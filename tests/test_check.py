@@ -63,6 +63,9 @@ def test_check_text_and_unknown_gain(capsys):
     out = capsys.readouterr().out
     assert code in (0, 1)
     assert "Gain set 'placed'" in out and "Gain set 'lqr'" in out and "Requirements" in out
+    code = main(["check", str(CASES / "delivery_cart.toml"), "--samples", "200", "--no-search", "--quiet", "--compare"])
+    out = capsys.readouterr().out
+    assert "side by side" in out and "placed" in out and "lqr" in out and "overall" in out
     assert main(["check", str(CASES / "delivery_cart.toml"), "--gain", "nope"]) == 2
     assert "unknown gain set 'nope'" in capsys.readouterr().err
     assert main(["check", str(CASES / "delivery_cart.toml"), "--samples", "0"]) == 2

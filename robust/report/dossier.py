@@ -467,69 +467,73 @@ def _blocks(d, today: str) -> tuple[list, list[Figure]]:
                         f"{g.gain.name}_time_verdicts",
                     )
                 )
-    # figures
     B.append(_h(2, "Figures"))
+    figs = [Figure(name, F.svg(make()), caption) for name, caption, make in figure_plan(d)]
+    return B, figs
+
+
+def figure_plan(d) -> list[tuple[str, str, object]]:
+    """The dossier's figures as ``(name, caption, factory)``; each factory draws a new Figure.
+
+    Drawn once for the SVG files and HTML and once more (vector) for the PDF.
+    """
+    case, chk, tm = d.case, d.check, d.time
     req = case.requirements
-    figs.append(
-        Figure(
+    plan: list[tuple[str, str, object]] = [
+        (
             "eigenvalues",
-            F.svg(F.eigenvalue_map(d.eigenvalues, req)),
-            "Closed-loop eigenvalues of every corner and sample, one marker per gain set; the shaded area "
-            "is the region the requirements ask for.",
-        )
-    )
-    figs.append(
-        Figure(
+            "Closed-loop eigenvalues of every corner and sample, one marker per gain set; the shaded "
+            "area is the region the requirements ask for.",
+            lambda: F.eigenvalue_map(d.eigenvalues, req),
+        ),
+        (
             "margins",
-            F.svg(F.margin_distributions(d.sample_values, req)),
             "Distributions of the loop-at-a-time margins over the samples; dashed line: required bound.",
-        )
-    )
+            lambda: F.margin_distributions(d.sample_values, req),
+        ),
+    ]
     if case.box.ranges:
-        worst = {s.name: s.worst.at for s in chk.gains[0].summaries}
-        figs.append(
-            Figure(
+        first = chk.gains[0]
+        worst = {s.name: s.worst.at for s in first.summaries}
+        plan.append(
+            (
                 "worst_locations",
-                F.svg(F.worst_locations(case.box.names, case.box.low, case.box.high, worst)),
-                f"Where the worst case of each metric lies for '{chk.gains[0].gain.name}'.",
+                f"Where the worst case of each metric lies for '{first.gain.name}'.",
+                lambda: F.worst_locations(case.box.names, case.box.low, case.box.high, worst),
             )
         )
     if tm is not None:
-        plant = plant_batch(case.vehicle)
         v = case.vehicle
         w = np.linspace(-1.2, 1.2, 200) * v.drive.supply_v / v.drive.back_emf_v_s_per_rad
-        env = torque_envelope(plant, w[None, :])
+        env = torque_envelope(plant_batch(v), w[None, :])
         drive_env = {"speed": w, "low": env["low"][0], "high": env["high"][0]}
         for tg in tm.gains:
+            name = tg.gain.name
             if tg.manoeuvres:
                 m = tg.manoeuvres[0]
-                figs.append(
-                    Figure(
-                        f"{tg.gain.name}_envelope",
-                        F.svg(
-                            F.response_envelopes(
-                                m.envelope, m.worst_trace, drive_env, f"'{tg.gain.name}': {m.name} ({m.kind})"
-                            )
+                plan.append(
+                    (
+                        f"{name}_envelope",
+                        f"Response envelopes of '{name}' in '{m.name}' (min / median / max over corners and "
+                        "samples), the worst sample's trace, and the drive's torque-speed envelope with that "
+                        "sample's path.",
+                        lambda m=m, name=name: F.response_envelopes(
+                            m.envelope, m.worst_trace, drive_env, f"'{name}': {m.name} ({m.kind})"
                         ),
-                        f"Response envelopes of '{tg.gain.name}' in '{m.name}' (min / median / max over "
-                        "corners and samples), the worst sample's trace, and the drive's torque-speed "
-                        "envelope with that sample's path.",
                     )
                 )
-            s = tg.survivable[0]
             if case.box.ranges:
-                figs.append(
-                    Figure(
-                        f"{tg.gain.name}_survivable",
-                        F.svg(
-                            F.survivable_map(
-                                case.box.names, s.points, s.survived, s.unit, f"Survivable speed step, '{tg.gain.name}'"
-                            )
+                s = tg.survivable[0]
+                plan.append(
+                    (
+                        f"{name}_survivable",
+                        f"Largest survivable speed step of every simulated model for '{name}'.",
+                        lambda s=s, name=name: F.survivable_map(
+                            case.box.names, s.points, s.survived, s.unit, f"Survivable speed step, '{name}'"
                         ),
-                        f"Largest survivable speed step of every simulated model for '{tg.gain.name}'.",
                     )
                 )
-    return B, figs
+    return plan
 
 
 def _md_table(t: Table) -> str:
@@ -648,14 +652,9 @@ def render_pdf(blocks, figs, path: Path) -> None:
             pdf.savefig(fig)
             plt.close(fig)
         for f in figs:
-            fig = _svg_to_fig(f)
-            if fig is not None:
-                pdf.savefig(fig)
-                plt.close(fig)
-
-
-def _svg_to_fig(f: Figure):
-    return f.mpl
+            if f.mpl is not None:
+                pdf.savefig(f.mpl)
+                plt.close(f.mpl)
 
 
 def write_dossier(d, out_dir: Path, *, today: str) -> dict[str, Path]:
@@ -715,35 +714,5 @@ def _safe(name: str) -> str:
 
 
 def _pdf_with_figures(blocks, d, path: Path) -> None:
-    """Render the PDF; figures are drawn again (vector) since SVG cannot be embedded by matplotlib."""
-    _b, figs = blocks, []
-    case, chk, tm = d.case, d.check, d.time
-    req = case.requirements
-    mpl_figs = [F.eigenvalue_map(d.eigenvalues, req), F.margin_distributions(d.sample_values, req)]
-    if case.box.ranges:
-        mpl_figs.append(
-            F.worst_locations(
-                case.box.names, case.box.low, case.box.high, {s.name: s.worst.at for s in chk.gains[0].summaries}
-            )
-        )
-    if tm is not None:
-        plant = plant_batch(case.vehicle)
-        v = case.vehicle
-        w = np.linspace(-1.2, 1.2, 200) * v.drive.supply_v / v.drive.back_emf_v_s_per_rad
-        env = torque_envelope(plant, w[None, :])
-        drive_env = {"speed": w, "low": env["low"][0], "high": env["high"][0]}
-        for tg in tm.gains:
-            if tg.manoeuvres:
-                m = tg.manoeuvres[0]
-                mpl_figs.append(
-                    F.response_envelopes(m.envelope, m.worst_trace, drive_env, f"'{tg.gain.name}': {m.name} ({m.kind})")
-                )
-            if case.box.ranges:
-                s = tg.survivable[0]
-                mpl_figs.append(
-                    F.survivable_map(
-                        case.box.names, s.points, s.survived, s.unit, f"Survivable speed step, '{tg.gain.name}'"
-                    )
-                )
-    figs = [Figure("", "", "", mpl=f) for f in mpl_figs]
-    render_pdf(blocks, figs, path)
+    """Render the PDF; the figures are drawn again as vector graphics."""
+    render_pdf(blocks, [Figure(name, "", caption, mpl=make()) for name, caption, make in figure_plan(d)], path)

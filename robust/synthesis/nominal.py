@@ -49,3 +49,27 @@ def bryson_weights(max_state: np.ndarray, max_input: np.ndarray) -> dict[str, np
     if np.any(max_state <= 0) or np.any(max_input <= 0):
         raise ValueError("Bryson's rule needs positive maximum excursions")
     return {"Q": np.diag(1.0 / max_state**2), "R": np.diag(1.0 / max_input**2)}
+
+
+BRYSON_KEYS = (
+    "max_speed_error_m_s",
+    "max_yaw_rate_error_rad_s",
+    "max_pitch_deg",
+    "max_pitch_rate_deg_s",
+    "max_torque_n_m",
+)
+
+
+def bryson_from_keys(d) -> dict[str, np.ndarray]:
+    """Bryson weights from the case-file keys in :data:`BRYSON_KEYS` (angles in degrees there)."""
+    return bryson_weights(
+        np.array(
+            [
+                d["max_speed_error_m_s"],
+                d["max_yaw_rate_error_rad_s"],
+                np.radians(d["max_pitch_deg"]),
+                np.radians(d["max_pitch_rate_deg_s"]),
+            ]
+        ),
+        np.array([d["max_torque_n_m"]] * 2),
+    )
