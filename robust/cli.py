@@ -149,29 +149,23 @@ def _dossier(args: argparse.Namespace) -> int:
     return 0 if any(both) else 1
 
 
-def _nonneg_int(text: str) -> int:
-    v = _seed(text)
-    return v
+def _whole(low: int):
+    """An argparse type: a whole number >= ``low``."""
+
+    def parse(text: str) -> int:
+        try:
+            v = int(text)
+        except ValueError:
+            raise argparse.ArgumentTypeError(f"expected a whole number, got {text!r}") from None
+        if v < low:
+            raise argparse.ArgumentTypeError(f"expected >= {low}, got {v}")
+        return v
+
+    return parse
 
 
-def _positive_int(text: str) -> int:
-    try:
-        v = int(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"expected a whole number, got {text!r}") from None
-    if v < 1:
-        raise argparse.ArgumentTypeError(f"expected >= 1, got {v}")
-    return v
-
-
-def _seed(text: str) -> int:
-    try:
-        v = int(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"expected a whole number, got {text!r}") from None
-    if v < 0:
-        raise argparse.ArgumentTypeError(f"expected >= 0, got {v}")
-    return v
+_positive_int = _whole(1)
+_seed = _nonneg_int = _whole(0)
 
 
 def _study_options(p: argparse.ArgumentParser) -> None:

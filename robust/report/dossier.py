@@ -23,7 +23,7 @@ from robust.analysis.metrics import METRICS
 from robust.dynamics import torque_envelope
 from robust.report import figures as F
 from robust.report.jsonout import dumps
-from robust.report.text import fmt
+from robust.report.text import fmt, time_verdict_row
 from robust.vehicle import PARAMETERS, get_parameter, plant_batch
 
 SAFETY = [
@@ -446,18 +446,7 @@ def _blocks(d, today: str) -> tuple[list, list[Figure]]:
                     f"{g.gain.name}_survivable",
                 )
             )
-            rows = [
-                [
-                    v.requirement,
-                    fmt(v.threshold),
-                    fmt(v.worst),
-                    v.unit,
-                    fmt(v.margin),
-                    "pass" if v.passed else "FAIL",
-                    f"{v.failures}/{v.models}",
-                ]
-                for v in tg.verdicts
-            ]
+            rows = [time_verdict_row(v) for v in tg.verdicts]
             if rows:
                 B.append(
                     Table(

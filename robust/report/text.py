@@ -214,6 +214,20 @@ def check_text(result) -> str:
     return "\n".join(out) + "\n"
 
 
+def time_verdict_row(v) -> list[str]:
+    """One time-domain verdict as table cells."""
+    verdict = "pass" if v.passed else "FAIL"
+    return [
+        v.requirement,
+        fmt(v.threshold),
+        fmt(v.worst),
+        v.unit,
+        fmt(v.margin),
+        verdict,
+        f"{v.failures} of {v.models}",
+    ]
+
+
 def time_text(result) -> str:
     """The simulate command's report."""
     st = result.study
@@ -238,18 +252,7 @@ def time_text(result) -> str:
         out.append(table(["step", "unit", "median", "worst", "worst at"], rows))
         if g.verdicts:
             out += ["", "Requirements"]
-            rows = [
-                [
-                    v.requirement,
-                    fmt(v.threshold),
-                    fmt(v.worst),
-                    v.unit,
-                    fmt(v.margin),
-                    "pass" if v.passed else "FAIL",
-                    f"{v.failures} of {v.models}",
-                ]
-                for v in g.verdicts
-            ]
+            rows = [time_verdict_row(v) for v in g.verdicts]
             out.append(table(["requirement", "bound", "worst", "unit", "margin", "verdict", "failing runs"], rows))
     verdict = "every requirement holds" if result.passed else "at least one requirement fails"
     out += ["", f"Overall: {verdict} for the gain sets simulated."]
