@@ -83,3 +83,12 @@ def test_failed_run_keeps_previous_dossier(two_runs, monkeypatch, tmp_path):
     after = {p.relative_to(target): p.read_bytes() for p in target.rglob("*") if p.is_file()}
     assert after == before
     assert [p.name for p in tmp_path.iterdir()] == ["keep"]  # no half-written folder left beside it
+
+
+def test_bad_case_exits_2_and_writes_nothing(tmp_path, capsys):
+    bad = tmp_path / "bad.toml"
+    bad.write_text('title = "x"\n')
+    out = tmp_path / "out"
+    assert main(["dossier", str(bad), "--out", str(out)]) == 2
+    assert "missing table 'vehicle'" in capsys.readouterr().err
+    assert not out.exists()
