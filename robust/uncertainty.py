@@ -10,6 +10,7 @@ vehicles.
 from __future__ import annotations
 
 import itertools
+import warnings
 from dataclasses import dataclass
 
 import numpy as np
@@ -155,7 +156,10 @@ def quasi_random(box: Box, n: int, seed: int, *, kind: str = "sobol") -> np.ndar
     if k == 0:
         return np.zeros((n, 0))
     if kind == "sobol":
-        u = qmc.Sobol(d=k, scramble=True, seed=seed).random(n)
+        # the first n points of the scrambled sequence; a power of two keeps its balance properties
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", UserWarning)
+            u = qmc.Sobol(d=k, scramble=True, seed=seed).random(n)
     elif kind == "latin_hypercube":
         u = qmc.LatinHypercube(d=k, seed=seed).random(n)
     else:
@@ -164,7 +168,12 @@ def quasi_random(box: Box, n: int, seed: int, *, kind: str = "sobol") -> np.ndar
 
 
 def plan_points(box: Box, plan: str, *, samples: int = 0, seed: int = 0, grid_points: int = 3) -> np.ndarray:
-    """Parameter points of a named plan (see :data:`PLANS`), shape ``(n, k)``."""
+    """Parameter points of a named plan (see :data:`PLANS`), shape ``(n, k)``.
+
+    With no ranges every plan is the nominal vehicle alone, ``(1, 0)``.
+    """
+    if not box.ranges:
+        return np.zeros((1, 0))
     if plan == "corners":
         return corners(box)
     if plan == "grid":

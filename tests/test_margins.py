@@ -89,6 +89,7 @@ def test_multiloop_disk_margin_matches_python_control(samples):
     blocks the D-scaled bound equals mu, so both compute the same number;
     python-control grids frequency, so agreement is to ~1e-5."""
     import slycot  # noqa: F401  (a declared test dependency: python-control needs it for MIMO disk margins)
+
     m, K = samples
     ours = multiloop_disk_margin(m.A, m.B, K)["disk_margin"]
     w = np.logspace(-3, 3, 4001)
