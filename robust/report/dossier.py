@@ -557,7 +557,7 @@ def render_markdown(blocks, figs) -> str:
 
 CSS = """body{font-family:sans-serif;max-width:1200px;margin:2em auto;padding:0 1em;color:#111}
 table{border-collapse:collapse;margin:0.5em 0 1.5em;font-size:0.85em}
-th,td{border:1px solid #999;padding:2px 6px;text-align:right}th{background:#eee}
+th,td{border:1px solid #999;padding:2px 6px;text-align:right;max-width:40em;overflow-wrap:anywhere}th{background:#eee}
 td:first-child,th:first-child{text-align:left}caption{font-weight:bold;text-align:left;padding:4px 0}
 .fail{font-weight:bold;text-decoration:underline}.caution{border:2px solid #000;padding:0.5em 1em}
 figure{margin:1em 0}figcaption{font-style:italic;font-size:0.9em}svg{max-width:100%;height:auto}"""
