@@ -178,6 +178,13 @@ def _study_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("--quiet", action="store_true", help="no progress messages")
 
 
+def _gain_options(p: argparse.ArgumentParser, *, case_help: str, file_help: str | None) -> None:
+    p.add_argument("case", help="case file (TOML)")
+    p.add_argument("--gain", action="append", metavar="NAME", help=case_help)
+    if file_help:
+        p.add_argument("--gain-file", action="append", metavar="PATH", help=file_help)
+
+
 def build_parser() -> argparse.ArgumentParser:
     """The argument parser (exposed for documentation and tests)."""
     parser = argparse.ArgumentParser(
@@ -195,9 +202,11 @@ def build_parser() -> argparse.ArgumentParser:
         "check",
         help="check gain sets against the whole parameter box (eigenvalues, margins, worst case)",
     )
-    p.add_argument("case", help="case file (TOML)")
-    p.add_argument("--gain", action="append", metavar="NAME", help="gain set from the case (repeatable; default all)")
-    p.add_argument("--gain-file", action="append", metavar="PATH", help="gain file to check as well (repeatable)")
+    _gain_options(
+        p,
+        case_help="gain set from the case (repeatable; default all)",
+        file_help="gain file to check as well (repeatable)",
+    )
     _study_options(p)
     p.add_argument("--compare", action="store_true", help="one column per gain set instead of one block each")
     p.add_argument("--json", action="store_true", help="print JSON instead of text")
@@ -207,9 +216,11 @@ def build_parser() -> argparse.ArgumentParser:
         "simulate",
         help="simulate gain sets through the case's manoeuvres on the nonlinear model with drive limits",
     )
-    p.add_argument("case", help="case file (TOML)")
-    p.add_argument("--gain", action="append", metavar="NAME", help="gain set from the case (repeatable; default all)")
-    p.add_argument("--gain-file", action="append", metavar="PATH", help="gain file to simulate as well (repeatable)")
+    _gain_options(
+        p,
+        case_help="gain set from the case (repeatable; default all)",
+        file_help="gain file to simulate as well (repeatable)",
+    )
     p.add_argument("--simulation-samples", type=_nonneg_int, help="Monte Carlo samples besides the corners")
     p.add_argument("--seed", type=_seed, help="seed of the Monte Carlo samples")
     p.add_argument("--quiet", action="store_true", help="no progress messages")
@@ -220,7 +231,7 @@ def build_parser() -> argparse.ArgumentParser:
         "synthesize",
         help="one LMI gain for the whole parameter box, with a certificate; writes a gain file and checks it",
     )
-    p.add_argument("case", help="case file (TOML)")
+    _gain_options(p, case_help="case gain sets to compare with (default all)", file_help=None)
     p.add_argument(
         "--route", choices=("moment_box", "sampled_hull"), help="polytope route (default: case or moment_box)"
     )
@@ -228,7 +239,6 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--objective", choices=("gain", "decay", "cost"), help="what to optimise (default gain)")
     p.add_argument("--name", help="name of the new gain set (default: case or 'lmi')")
     p.add_argument("--out", metavar="PATH", help="gain file to write (default gains/NAME.toml)")
-    p.add_argument("--gain", action="append", metavar="NAME", help="case gain sets to compare with (default all)")
     p.add_argument("--quiet", action="store_true", help="no progress messages")
     p.add_argument("--json", action="store_true", help="print JSON instead of text")
     p.set_defaults(func=_synthesize)

@@ -428,6 +428,24 @@ def _attempt(poly, spec, alpha, delta):
     return best, last, count
 
 
+def _bisect(poly, spec, lo: float, hi: float, delta: float, steps: int):
+    """Largest decay rate in ``[lo, hi]`` that certifies (``lo`` assumed feasible).
+
+    Returns ``(rate, result at that rate or None if only lo is known, solves)``.
+    """
+    best = None
+    solves = 0
+    for _ in range(steps):
+        mid = 0.5 * (lo + hi)
+        r, _s, c = _attempt(poly, spec, mid, delta)
+        solves += c
+        if r is not None:
+            lo, best = mid, r
+        else:
+            hi = mid
+    return lo, best, solves
+
+
 def synthesize(poly: Polytope, spec: Spec, *, delta: float = 1e-6, bisection_steps: int = 8) -> SynthesisResult:
     """Synthesize one gain for the whole polytope.
 
@@ -464,15 +482,8 @@ def synthesize(poly: Polytope, spec: Spec, *, delta: float = 1e-6, bisection_ste
                 f"({poly.route}, {poly.vertices} vertices, {spec.lyapunov} Lyapunov matrix; solver said: {st0}). "
                 "Relax the damping, frequency or torque request, narrow the ranges, or try the other route."
             )
-        best = 0.0
-        for _ in range(bisection_steps):
-            mid = 0.5 * (lo + hi)
-            r, _s, c = _attempt(poly, spec, mid, delta)
-            solves += c
-            if r is not None:
-                lo, best = mid, mid
-            else:
-                hi = mid
+        best, _r, c = _bisect(poly, spec, lo, hi, delta, bisection_steps)
+        solves += c
         raise Infeasible(
             f"decay rate {spec.decay_rate:g} 1/s could not be certified over this polytope "
             f"({poly.route}, {spec.lyapunov} Lyapunov matrix) with the other constraints kept; "
@@ -487,15 +498,9 @@ def synthesize(poly: Polytope, spec: Spec, *, delta: float = 1e-6, bisection_ste
             if r is None or hi >= 64.0:
                 break
             lo, res, hi = hi, r, 2.0 * hi
-        for _ in range(bisection_steps):
-            mid = 0.5 * (lo + hi)
-            r, _s, c = _attempt(poly, spec, mid, delta)
-            solves += c
-            if r is not None:
-                lo, res = mid, r
-            else:
-                hi = mid
-        alpha = lo
+        alpha, r, c = _bisect(poly, spec, lo, hi, delta, bisection_steps)
+        solves += c
+        res = r or res
     cert = res["certificate"]
     return SynthesisResult(
         K=-res["K"],
