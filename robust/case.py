@@ -91,6 +91,7 @@ class Case:
     controller: Controller = field(default_factory=Controller)
     manoeuvres: tuple[Manoeuvre, ...] = ()
     synthesis: dict = field(default_factory=dict)
+    default_manoeuvres: bool = False
 
     @property
     def vehicle(self) -> Vehicle:
@@ -148,9 +149,18 @@ REQUIREMENT_UNITS = {
     "max_wheel_torque_n_m": ("N m", 0.0, None),
     "max_pitch_deg": ("deg", 0.0, 90.0),
     "max_settling_time_s": ("s", 0.0, None),
-    "min_survivable_speed_step_m_s": ("m/s", 0.0, None),
-    "min_survivable_yaw_rate_step_rad_s": ("rad/s", 0.0, None),
+    "min_speed_step_within_limits_m_s": ("m/s", 0.0, None),
+    "min_yaw_rate_step_within_limits_rad_s": ("rad/s", 0.0, None),
 }
+RENAMED_KEYS = {
+    "min_survivable_speed_step_m_s": "min_speed_step_within_limits_m_s",
+    "min_survivable_yaw_rate_step_rad_s": "min_yaw_rate_step_within_limits_rad_s",
+}
+# Work budget (common practice for a 24 GiB machine: the check keeps a few arrays of 8-byte values per
+# sample; the budgets keep one run well inside memory and inside a working day).
+MAX_SAMPLES = 20_000_000
+MAX_GRID_POINTS = 2_000_000
+MAX_SIMULATION_SAMPLES = 100_000
 MANOEUVRE_KEYS = {
     "speed_step": ("duration_s", "start_s", "speed_m_s"),
     "speed_ramp": ("duration_s", "start_s", "speed_m_s", "ramp_time_s"),
@@ -322,10 +332,11 @@ def _ranges(doc: dict, vehicle: Vehicle) -> tuple[Range, ...]:
                     raise CaseError(f"'{path}.std': expected > 0 [{info.unit}], got {std:g}")
             elif "std" in tab:
                 raise CaseError(f"'{path}.std': only used with a normal distribution")
-            if name == "payload.mass_kg" and vehicle.payload.mass_kg <= 0:
+            if name == "payload.mass_kg" and vehicle.payload.mass_kg < 1e-3 * high:
                 raise CaseError(
-                    f"'{path}': the nominal payload mass must be > 0 when it has a range, "
-                    "because payload inertias scale with the mass"
+                    f"'{path}': the nominal payload mass (vehicle.payload.mass_kg = {vehicle.payload.mass_kg:g} kg) "
+                    f"must be at least 1/1000 of the range's high value {high:g} kg when the mass has a range, "
+                    "because payload inertias scale with the mass over its nominal value"
                 )
             out.append(Range(name, low, high, dist, mode, std))
     _check_inertia_corners(vehicle, out)
@@ -361,17 +372,42 @@ def parse_case(text: str, *, source: str = "<text>") -> Case:
     vehicle = _vehicle(doc)
     ranges = _ranges(doc, vehicle)
     digest = hashlib.sha256(text.encode("utf-8")).hexdigest()
+    study = _study(doc)
+    check_study_budget(study, len(ranges))
+    ctl = _controller(doc)
+    manoeuvres = _manoeuvres(doc, vehicle, ctl)
+    defaults = not manoeuvres
+    if defaults:
+        manoeuvres = default_manoeuvres(vehicle, ctl)
     return Case(
         title=title,
         source=source,
         sha256=digest,
         box=Box(vehicle, ranges),
         requirements=_requirements(doc),
-        study=_study(doc),
+        study=study,
         gains=_gains(doc),
-        controller=(ctl := _controller(doc)),
-        manoeuvres=_manoeuvres(doc, vehicle, ctl),
+        controller=ctl,
+        manoeuvres=manoeuvres,
         synthesis=_synthesis(doc),
+        default_manoeuvres=defaults,
+    )
+
+
+def default_manoeuvres(vehicle: Vehicle, controller: Controller) -> tuple[Manoeuvre, ...]:
+    """The manoeuvres a case without ``[manoeuvres]`` gets (shown as defaults in every output).
+
+    A speed step of 1 m/s, a yaw-rate step of 0.5 rad/s (each at most a quarter of what the drive's
+    no-load speed allows) and a start tilted by 5 deg (at most a third of the fall angle).
+    """
+    no_load = vehicle.drive.supply_v / vehicle.drive.back_emf_v_s_per_rad * vehicle.wheel.radius_m
+    speed = min(1.0, 0.25 * no_load)
+    yaw = min(0.5, 0.25 * no_load / vehicle.wheel.half_track_m)
+    tilt = min(np.radians(5.0), controller.fall_angle_rad / 3)
+    return (
+        Manoeuvre("default speed step", "speed_step", 5.0, start_s=0.2, speed_m_s=float(f"{speed:.3g}")),
+        Manoeuvre("default yaw-rate step", "yaw_rate_step", 5.0, start_s=0.2, yaw_rate_rad_s=float(f"{yaw:.3g}")),
+        Manoeuvre("default tilted start", "tilted_start", 4.0, initial_pitch_rad=float(tilt)),
     )
 
 
@@ -427,6 +463,9 @@ def _synthesis(doc: dict) -> dict:
 
 def _requirements(doc: dict) -> dict[str, float]:
     rt = _table(doc, "requirements", "", required=False)
+    for old, new in RENAMED_KEYS.items():
+        if old in rt:
+            raise CaseError(f"'requirements.{old}' was renamed '{new}' (same meaning and unit); rename the key")
     _check_keys(rt, list(REQUIREMENT_UNITS), "requirements")
     out = {}
     for key in rt:
@@ -470,7 +509,7 @@ def _study(doc: dict) -> Study:
     search = st.get("worst_case_search", base.search)
     if not isinstance(search, bool):
         raise CaseError(f"'study.worst_case_search': expected true or false, got {search!r}")
-    return Study(
+    study = Study(
         plan=plan,
         samples=_integer(st, "samples", "study", default=base.samples, low=1),
         grid_points=_integer(st, "grid_points", "study", default=base.grid_points, low=2),
@@ -479,6 +518,28 @@ def _study(doc: dict) -> Study:
         search=search,
         simulation_samples=_integer(st, "simulation_samples", "study", default=base.simulation_samples, low=0),
     )
+    return study
+
+
+def check_study_budget(study: Study, ranges: int, *, where: str = "study") -> None:
+    """Refuse sample counts and grids beyond the work budget, naming the key."""
+    if study.seed >= 2**63:
+        raise CaseError(f"'{where}.seed': expected below 2^63, got {study.seed}")
+    if study.samples > MAX_SAMPLES:
+        raise CaseError(
+            f"'{where}.samples': {study.samples} is beyond the budget of {MAX_SAMPLES} samples for one run; "
+            "split the study or use a campaign"
+        )
+    if study.simulation_samples > MAX_SIMULATION_SAMPLES:
+        raise CaseError(
+            f"'{where}.simulation_samples': {study.simulation_samples} is beyond the budget of "
+            f"{MAX_SIMULATION_SAMPLES} simulated samples for one run"
+        )
+    if study.plan == "grid" and ranges and float(study.grid_points) ** ranges > MAX_GRID_POINTS:
+        raise CaseError(
+            f"'{where}.grid_points': {study.grid_points} points on each of {ranges} ranges make "
+            f"{float(study.grid_points) ** ranges:.3g} grid points, beyond the budget of {MAX_GRID_POINTS}"
+        )
 
 
 def _controller(doc: dict) -> Controller:
@@ -532,6 +593,19 @@ def _manoeuvres(doc: dict, vehicle: Vehicle, controller: Controller) -> tuple[Ma
                 f"'{path}.speed_m_s': {vals['speed_m_s']:g} m/s is beyond the drive's no-load speed "
                 f"{no_load:.3g} m/s (supply / back-EMF constant x wheel radius)"
             )
+        if "yaw_rate_rad_s" in vals:
+            turn = no_load / vehicle.wheel.half_track_m
+            wheel = abs(vals["yaw_rate_rad_s"]) * vehicle.wheel.half_track_m + abs(vals.get("speed_m_s", 0.0))
+            if wheel >= no_load:
+                raise CaseError(
+                    f"'{path}.yaw_rate_rad_s': {vals['yaw_rate_rad_s']:g} rad/s (with the speed step) asks an outer "
+                    f"wheel for {wheel:.3g} m/s, beyond the drive's no-load speed {no_load:.3g} m/s; on the spot "
+                    f"the drive can turn at most {turn:.3g} rad/s"
+                )
+        if "push_force_n" in vals and abs(vals["push_force_n"]) > 1e5:
+            raise CaseError(f"'{path}.push_force_n': expected at most 1e5 N in size, got {vals['push_force_n']:g}")
+        if "push_height_m" in vals and vals["push_height_m"] > 10:
+            raise CaseError(f"'{path}.push_height_m': expected at most 10 m, got {vals['push_height_m']:g}")
         for key in ("ramp_time_s", "push_duration_s"):
             if key in vals and vals[key] <= 0:
                 raise CaseError(f"'{path}.{key}': expected > 0 [s], got {vals[key]:g}")
@@ -577,7 +651,10 @@ def _gains(doc: dict) -> tuple[GainSpec, ...]:
                 raise CaseError(f"missing key '{path}.poles': expected a list of real poles [1/s]")
             real = _number_list(tab, "poles", path, "1/s", None)
             pairs = []
-            for i, pair in enumerate(tab.get("complex_poles", [])):
+            cp = tab.get("complex_poles", [])
+            if not isinstance(cp, list):
+                raise CaseError(f"'{path}.complex_poles': expected a list of [re, im] pairs [1/s], got {cp!r}")
+            for i, pair in enumerate(cp):
                 pairs.append(_number_list({"p": pair}, "p", f"{path}.complex_poles[{i}]", "1/s", 2))
             if len(real) + 2 * len(pairs) != 4:
                 raise CaseError(

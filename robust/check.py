@@ -20,9 +20,11 @@ from robust.analysis.worst import search_worst
 from robust.case import Case, Study
 from robust.gains import GainSet
 from robust.linear import reduced_model
+from robust.progress import bar
 from robust.uncertainty import corners, plan_points
 
 Progress = Callable[[str], None]
+STABILITY = "closed_loop_stable"
 
 
 @dataclass(frozen=True)
@@ -48,6 +50,7 @@ class MetricSummary:
     worst_search: Worst | None
     worst: Worst
     percentiles: dict[str, float]
+    varies: bool = True
 
 
 @dataclass(frozen=True)
@@ -112,6 +115,37 @@ def _at(names, point) -> dict[str, float]:
     return {n: float(v) for n, v in zip(names, point)}
 
 
+def _varies(corner_values: np.ndarray, sample_values: np.ndarray, searched: Worst | None) -> bool:
+    """Whether a metric takes more than one value over the box (a location is meaningless otherwise)."""
+    v = np.concatenate([corner_values, sample_values] + ([np.array([searched.value])] if searched else []))
+    if np.all(np.isinf(v)) or v.size == 0:
+        return False
+    return bool(np.ptp(v[np.isfinite(v)]) > 1e-9 * max(1.0, float(np.abs(v[np.isfinite(v)]).max()))) or bool(
+        np.any(np.isinf(v)) and np.any(np.isfinite(v))
+    )
+
+
+def _stability_verdict(case: Case, study: Study, decay: MetricSummary, at_samples: dict) -> Verdict:
+    """Closed-loop stability of every model: always a requirement, whatever the case file asks."""
+    vals = at_samples["decay_rate"]
+    fails = int(np.sum(vals <= 0))
+    n = len(vals)
+    interval = clopper_pearson(fails, n, study.confidence) if study.plan == "monte_carlo" and n else None
+    return Verdict(
+        requirement=STABILITY,
+        metric="decay_rate",
+        unit="1/s",
+        threshold=0.0,
+        worst=decay.worst.value,
+        passed=bool(decay.worst.value > 0),
+        margin=float(decay.worst.value),
+        failures=fails,
+        samples=n,
+        failure_fraction=fails / n if n else 0.0,
+        failure_interval=interval,
+    )
+
+
 def _worst_index(metric: str, values: np.ndarray) -> int:
     return int(np.argmax(METRICS[metric].badness(values)))
 
@@ -152,10 +186,12 @@ def check_gain(
     points: np.ndarray,
     *,
     progress: Progress | None = None,
+    advance: Callable[[int], None] | None = None,
 ) -> GainCheck:
     """Check one gain set on the corners, the given sample points and (optionally) by search."""
     box, names, K = case.box, case.box.names, gain.K
     say = progress or (lambda _msg: None)
+    step = advance or (lambda _n=1: None)
     nominal = evaluate(box, box.nominal[None, :], K)
     cpts = corners(box)
     at_corners = evaluate(box, cpts, K)
@@ -163,6 +199,7 @@ def check_gain(
     at_samples = evaluate(
         box, points, K, progress=lambda d, t: say(f"{gain.name}: samples {d}/{t}") if t > 20000 else None
     )
+    step(1)
     summaries = []
     searched: dict[str, Worst] = {}
     for name, m in METRICS.items():
@@ -184,6 +221,7 @@ def check_gain(
                 r = search_worst(box, K, name, allp[order], seed=study.seed)
                 wsearch = Worst(r.value, _at(names, r.point), "search")
                 searched[name] = wsearch
+        step(1)
         cands = [w for w in (wc, ws, wsearch) if w is not None]
         worst = cands[0]
         for w in cands[1:]:
@@ -201,9 +239,10 @@ def check_gain(
                 worst_search=wsearch,
                 worst=worst,
                 percentiles=percentiles(at_samples[name]) if len(points) else {},
+                varies=_varies(at_corners[name], at_samples[name], wsearch),
             )
         )
-    verdicts = []
+    verdicts = [_stability_verdict(case, study, {s.name: s for s in summaries}["decay_rate"], at_samples)]
     by_name = {s.name: s for s in summaries}
     for key, threshold in case.requirements.items():
         for name, m in METRICS.items():
@@ -258,7 +297,9 @@ def run_check(
     if not gains:
         raise ValueError("no gain set to check: add [gains.NAME] to the case or pass a gain file")
     points = plan_points(case.box, study.plan, samples=study.samples, seed=study.seed, grid_points=study.grid_points)
-    checks = tuple(check_gain(case, g, study, points, progress=progress) for g in gains)
+    total = len(gains) * (1 + len(METRICS))
+    with bar(progress, total, f"linear check of {len(gains)} gain sets on {len(points)} samples") as advance:
+        checks = tuple(check_gain(case, g, study, points, progress=progress, advance=advance) for g in gains)
     return CheckResult(
         title=case.title,
         case_sha256=case.sha256,

@@ -16,7 +16,7 @@ import numpy as np
 
 from robust import __version__
 from robust.case import Case
-from robust.check import CheckResult, run_check
+from robust.check import CheckResult
 from robust.gains import GainSet
 from robust.synthesis.lmi import Spec, SynthesisResult, synthesize
 from robust.synthesis.nominal import bryson_from_keys
@@ -27,12 +27,43 @@ Progress = Callable[[str], None]
 
 @dataclass(frozen=True)
 class DesignResult:
-    """Everything the synthesis command reports."""
+    """Everything the synthesis command reports.
+
+    ``not_imposed`` maps a requested constraint to why the LMIs could not
+    carry it; the assessment reports those as sampled results only.
+    ``assessment`` is ``None`` when only the synthesis was asked for.
+    """
 
     polytope: Polytope
     synthesis: SynthesisResult
     gain: GainSet
-    check: CheckResult
+    check: CheckResult | None
+    not_imposed: dict[str, str]
+    assessment: object | None = None
+
+
+CAUTION = (
+    "Model analysis only, not a safety case: validate on hardware with the vehicle restrained "
+    "before anyone rides; defer to the applicable standards and licensed engineering practice."
+)
+
+
+def resolve_options(case: Case, overrides: dict | None = None) -> dict:
+    """The synthesis options: ``[synthesis]``, then overrides; the parameter-dependent variant picks its route.
+
+    Raises ``ValueError`` naming the option when the combination cannot work.
+    """
+    opts = dict(case.synthesis)
+    given = {k: v for k, v in (overrides or {}).items() if v is not None}
+    opts.update(given)
+    if opts.get("lyapunov") == "parameter_dependent":
+        if opts.get("route", "moment_box") == "moment_box" and ("route" in given or "route" in case.synthesis):
+            raise ValueError(
+                "the parameter-dependent Lyapunov variant needs the sampled-hull route: "
+                "set route = 'sampled_hull' (or --route sampled_hull), or use lyapunov = 'common'"
+            )
+        opts["route"] = "sampled_hull"
+    return opts
 
 
 def _initial_states(opts: dict) -> np.ndarray | None:
@@ -44,11 +75,33 @@ def _initial_states(opts: dict) -> np.ndarray | None:
     return np.array(sorted(pts)) if pts else None
 
 
-def make_spec(case: Case, overrides: dict | None = None) -> Spec:
-    """The synthesis request from ``[synthesis]`` (defaults from ``[requirements]``) and overrides."""
-    opts = dict(case.synthesis)
-    opts.update({k: v for k, v in (overrides or {}).items() if v is not None})
+def make_spec(case: Case, overrides: dict | None = None) -> tuple[Spec, dict[str, str]]:
+    """The synthesis request from ``[synthesis]`` (defaults from ``[requirements]``) and overrides.
+
+    Returns the spec and the requested constraints it cannot impose, with the reason.
+    """
+    opts = resolve_options(case, overrides)
     req = case.requirements
+    not_imposed: dict[str, str] = {}
+    pdlf = opts.get("lyapunov", "common") == "parameter_dependent"
+    damping = opts.get("min_damping_ratio", req.get("min_damping_ratio"))
+    max_freq = opts.get("max_natural_frequency_rad_s", req.get("max_natural_frequency_rad_s"))
+    if pdlf:
+        for key, value in (("min_damping_ratio", damping), ("max_natural_frequency_rad_s", max_freq)):
+            if value is None:
+                continue
+            if key in case.synthesis:
+                raise ValueError(
+                    f"'synthesis.{key}': the parameter-dependent Lyapunov variant cannot impose it; "
+                    "remove the key (the requirement is then checked on samples) or use lyapunov = 'common'"
+                )
+            not_imposed[key] = "the parameter-dependent Lyapunov variant imposes decay rate, gain size and torque only"
+        damping = max_freq = None
+    elif max_freq is not None and opts.get("route", "moment_box") == "moment_box":
+        not_imposed["max_natural_frequency_rad_s"] = (
+            "the rigorous route's descriptor form cannot carry the frequency disk (its diagonal blocks vanish)"
+        )
+        max_freq = None
     drive = case.vehicle.drive
     locked = drive.torque_constant_n_m_per_a * min(drive.current_limit_a, drive.supply_v / drive.resistance_ohm)
     objective = opts.get("objective", "gain")
@@ -66,10 +119,10 @@ def make_spec(case: Case, overrides: dict | None = None) -> Spec:
                     0.0,
                 ]
             )[:3]
-    return Spec(
+    spec = Spec(
         decay_rate=float(opts.get("min_decay_rate_per_s", req.get("min_decay_rate_per_s", 0.0))),
-        damping=opts.get("min_damping_ratio", req.get("min_damping_ratio")),
-        max_frequency=opts.get("max_natural_frequency_rad_s", req.get("max_natural_frequency_rad_s")),
+        damping=damping,
+        max_frequency=max_freq,
         torque_limit=opts.get("torque_limit_n_m"),
         initial_states=_initial_states(opts),
         cost_Q=Q,
@@ -79,6 +132,7 @@ def make_spec(case: Case, overrides: dict | None = None) -> Spec:
         lyapunov=opts.get("lyapunov", "common"),
         input_scale=float(locked),
     )
+    return spec, not_imposed
 
 
 def design(
@@ -87,22 +141,40 @@ def design(
     overrides: dict | None = None,
     progress: Progress | None = None,
     compare_with: list[GainSet] | None = None,
+    assess_gains: bool = True,
 ) -> DesignResult:
-    """Build the polytope, synthesize, and check the new gain beside ``compare_with``."""
+    """Build the polytope, synthesize, and (unless ``assess_gains`` is False) assess the new gain.
+
+    The assessment (linear and time domain, over the box) covers the new gain
+    and ``compare_with``; its overall verdict for the new gain is recorded in
+    the gain's provenance with what it covered and the case's SHA-256.
+    """
+    from robust.assess import assess
+    from robust.synthesis.lmi import explain_status
+
     say = progress or (lambda _m: None)
-    opts = dict(case.synthesis)
-    opts.update({k: v for k, v in (overrides or {}).items() if v is not None})
+    opts = resolve_options(case, overrides)
     route = opts.get("route", "moment_box")
-    spec = make_spec(case, overrides)
+    spec, not_imposed = make_spec(case, overrides)
     say(f"building the {route} polytope")
     kw = {"seed": case.study.seed}
     if "hull_margin" in opts:
         kw["margin"] = opts["hull_margin"]
     poly = build_polytope(case.box, route, **(kw if route == "sampled_hull" else {}))
     say(f"solving the LMIs on {poly.vertices} vertices ({spec.lyapunov} Lyapunov matrix, objective {spec.objective})")
-    res = synthesize(poly, spec)
+    res = synthesize(poly, spec, progress=progress)
     name = opts.get("name", "lmi")
     cert = res.certificate
+    imposed = {
+        k: v
+        for k, v in {
+            "min_decay_rate_per_s": spec.decay_rate,
+            "min_damping_ratio": spec.damping,
+            "max_natural_frequency_rad_s": spec.max_frequency,
+            "torque_limit_n_m": spec.torque_limit,
+        }.items()
+        if v is not None
+    }
     provenance = {
         "case_sha256": case.sha256,
         "method": "LMI synthesis",
@@ -113,24 +185,29 @@ def design(
         "guarantee": poly.guarantee,
         "certified_decay_rate_per_s": res.decay_rate,
         "solver": res.solver,
-        "solver_status": res.status,
+        "solver_status": explain_status(res.status),
         "certificate_largest_lmi_eigenvalue": cert.smallest_slack,
         "certificate_smallest_lyapunov_eigenvalue": cert.smallest_x_eig,
         "certificate_passed": cert.passed,
         "tool_version": __version__,
         "date": _dt.date.today().isoformat(),
-        "constraints": {
-            k: v
-            for k, v in {
-                "min_decay_rate_per_s": spec.decay_rate,
-                "min_damping_ratio": spec.damping,
-                "max_natural_frequency_rad_s": spec.max_frequency,
-                "torque_limit_n_m": spec.torque_limit,
-            }.items()
-            if v is not None
-        },
+        "caution": CAUTION,
+        "constraints_imposed": imposed,
     }
+    if not_imposed:
+        provenance["constraints_not_imposed"] = dict(not_imposed)
     gain = GainSet(name, res.K, f"LMI synthesis over the box ({route})", provenance)
-    say(f"checking '{name}' over the box")
-    check = run_check(case, [gain, *(compare_with or [])], progress=progress)
-    return DesignResult(polytope=poly, synthesis=res, gain=gain, check=check)
+    result = DesignResult(polytope=poly, synthesis=res, gain=gain, check=None, not_imposed=not_imposed)
+    if not assess_gains:
+        return result
+    say(f"assessing '{name}' over the box")
+    a = assess(case, [gain, *(compare_with or [])], design=result, progress=progress)
+    v = a.verdicts[0]
+    verdict = {
+        "status": v.status,
+        "covered": "; ".join(v.covered),
+        "failing": ", ".join(v.failing) or "none",
+        "not_evaluated": ", ".join(v.not_evaluated) or "none",
+    }
+    gain = GainSet(name, res.K, gain.origin, provenance | {"verdict": verdict})
+    return DesignResult(polytope=poly, synthesis=res, gain=gain, check=a.check, not_imposed=not_imposed, assessment=a)

@@ -18,12 +18,13 @@ import numpy as np
 from robust import __version__
 from robust.analysis.eigen import eigenvalues_4x4
 from robust.analysis.metrics import evaluate
+from robust.assess import assess
 from robust.case import Case, resolve_gain
-from robust.check import CheckResult, run_check
+from robust.check import CheckResult
 from robust.gains import GainSet
 from robust.linear import reduced_model
 from robust.modelfacts import ModelFacts, model_facts
-from robust.timecheck import TimeCheckResult, run_time_check
+from robust.timecheck import TimeCheckResult
 from robust.uncertainty import corners, plan_points
 
 Progress = Callable[[str], None]
@@ -39,6 +40,7 @@ class DossierData:
     facts: ModelFacts
     check: CheckResult
     time: TimeCheckResult | None
+    verdicts: tuple
     design: object | None
     design_error: str | None
     eigenvalues: dict[str, np.ndarray]
@@ -87,20 +89,16 @@ def run_dossier(
 
         say("LMI synthesis")
         try:
-            design = run_design(case, progress=None, compare_with=[])
+            design = run_design(case, progress=progress, assess_gains=False)
             # the dossier carries its date in its documents only, so results stay byte-identical
             undated = replace(design.gain, provenance={k: v for k, v in design.gain.provenance.items() if k != "date"})
             gains = [undated, *gains]
-        except Infeasible as exc:
+        except (Infeasible, ValueError) as exc:
             design_error = str(exc)
     if not gains:
         raise ValueError("the dossier needs at least one gain set: add [gains.NAME], [synthesis] or a gain file")
-    say(f"linear check of {len(gains)} gain sets")
-    check = run_check(case, gains, progress=progress)
-    time = None
-    if case.manoeuvres:
-        say("time-domain check")
-        time = run_time_check(case, gains, progress=progress)
+    a = assess(case, gains, design=design, progress=progress)
+    check, time = a.check, a.time
     pts = np.concatenate(
         [
             corners(case.box),
@@ -124,6 +122,7 @@ def run_dossier(
         facts=facts,
         check=check,
         time=time,
+        verdicts=a.verdicts,
         design=design,
         design_error=design_error,
         eigenvalues=eigs,

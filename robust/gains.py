@@ -9,8 +9,6 @@ from __future__ import annotations
 
 import json
 import math
-import os
-import tempfile
 import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -90,23 +88,11 @@ def gain_file_text(gain: GainSet) -> str:
     return "\n".join(lines) + "\n"
 
 
-def atomic_write(path: str | Path, text: str) -> None:
-    """Write ``text`` to ``path`` via a temporary file and a rename (never half-written)."""
-    path = Path(path)
-    path.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", dir=path.parent)
-    try:
-        with os.fdopen(fd, "w", encoding="utf-8") as fh:
-            fh.write(text)
-        os.replace(tmp, path)
-    except BaseException:
-        Path(tmp).unlink(missing_ok=True)
-        raise
-
-
 def write_gain_file(path: str | Path, gain: GainSet) -> None:
     """Write a gain file atomically."""
-    atomic_write(path, gain_file_text(gain))
+    from robust.outputs import atomic_write_text
+
+    atomic_write_text(path, gain_file_text(gain))
 
 
 def read_gain_file(path: str | Path) -> GainSet:
@@ -115,22 +101,36 @@ def read_gain_file(path: str | Path) -> GainSet:
     try:
         doc = tomllib.loads(path.read_text(encoding="utf-8"))
     except OSError as exc:
-        raise ValueError(f"cannot read gain file {str(path)!r}: {exc.strerror}") from None
+        raise ValueError(f"cannot read gain file {str(path)!r}: {exc.strerror or exc}") from None
+    except UnicodeDecodeError:
+        raise ValueError(f"{path}: gain file expected UTF-8 text") from None
     except tomllib.TOMLDecodeError as exc:
-        raise ValueError(f"{path}: not valid TOML: {exc}") from None
+        raise ValueError(f"{path}: gain file is not valid TOML: {exc}") from None
     g = doc.get("gain")
     if not isinstance(g, dict):
         raise ValueError(f"{path}: missing table 'gain'")
     unknown = set(g) - {"name", "origin", "states", "inputs", "matrix", "provenance"}
     if unknown:
         raise ValueError(f"{path}: unknown key 'gain.{sorted(unknown)[0]}'")
-    for key in ("name", "matrix"):
+    for key in ("name", "origin", "states", "inputs", "matrix"):
         if key not in g:
-            raise ValueError(f"{path}: missing key 'gain.{key}'")
-    if tuple(g.get("states", REDUCED_STATES)) != REDUCED_STATES:
-        raise ValueError(f"{path}: 'gain.states' must be {list(REDUCED_STATES)}")
-    if tuple(g.get("inputs", INPUTS)) != INPUTS:
-        raise ValueError(f"{path}: 'gain.inputs' must be {list(INPUTS)}")
+            raise ValueError(
+                f"{path}: missing key 'gain.{key}' (a gain file needs name, origin, states, inputs, matrix)"
+            )
+    for key in ("name", "origin"):
+        if key in g and not isinstance(g[key], str):
+            raise ValueError(f"{path}: 'gain.{key}' expected text, got {g[key]!r}")
+    from robust.outputs import OutputError, check_name
+
+    try:
+        check_name(g["name"], "gain.name")
+    except OutputError as exc:
+        raise ValueError(f"{path}: {exc}") from None
+    for key, want in (("states", REDUCED_STATES), ("inputs", INPUTS)):
+        if key in g and (not isinstance(g[key], list) or tuple(g[key]) != want):
+            raise ValueError(f"{path}: 'gain.{key}' must be the list {list(want)}, got {g[key]!r}")
+    if "provenance" in g and not isinstance(g["provenance"], dict):
+        raise ValueError(f"{path}: 'gain.provenance' expected a table, got {g['provenance']!r}")
     m = g["matrix"]
     ok = (
         isinstance(m, list)
@@ -138,8 +138,8 @@ def read_gain_file(path: str | Path) -> GainSet:
         and all(isinstance(r, list) and len(r) == 4 for r in m)
         and all(isinstance(x, (int, float)) and not isinstance(x, bool) for r in m for x in r)
     )
-    if not ok:
-        raise ValueError(f"{path}: 'gain.matrix' expected 2 rows of 4 numbers")
+    if not ok or not all(math.isfinite(x) for r in m for x in r):
+        raise ValueError(f"{path}: 'gain.matrix' expected 2 rows of 4 finite numbers, got {m!r}")
     return GainSet(
         name=str(g["name"]),
         K=np.array(m, dtype=float),

@@ -229,7 +229,7 @@ def simulate(
         every step of every sample (use with small ``n`` only).
     stop_at_current_limit
         Stop integrating a sample once it reaches its current limit (marked in
-        ``metrics["reached_current_limit"]``); used by the survivable-step search.
+        ``metrics["reached_current_limit"]``); used by the largest-step search.
     """
     n = plant.n
     scale = np.ones(n) if scale is None else np.broadcast_to(np.asarray(scale, dtype=float), (n,)).copy()
@@ -395,20 +395,29 @@ def simulate(
     )
 
 
-def survivable_step(
+STEP_CRITERIA = ("within_limits", "without_fall")
+
+
+def largest_step(
     plant: Plant,
     K: np.ndarray,
     manoeuvre: Manoeuvre,
     controller: Controller,
     *,
     upper: float,
+    criterion: str = "within_limits",
+    lower: np.ndarray | None = None,
     rounds: int = 4,
     points_per_round: int = 7,
 ) -> dict[str, np.ndarray]:
-    """Largest amplitude of a manoeuvre each model survives, by bracketing across the batch.
+    """Largest amplitude of a manoeuvre each model handles, by bracketing across the batch.
 
-    A run is survived when the model does not fall and never reaches its
-    current limit.  Each round simulates ``points_per_round`` amplitudes,
+    With ``criterion="within_limits"`` a run is handled when the model does
+    not fall and never reaches its current limit; with ``"without_fall"``
+    when it does not fall (the current limit may be reached).  ``lower``
+    (per model, as a fraction of the manoeuvre's amplitude) is a value known
+    to be handled, e.g. the within-limits result when searching without a
+    fall.  Each round simulates ``points_per_round`` amplitudes,
     evenly spaced inside every model's current bracket, for all models at
     once (one batch of ``n * points_per_round`` runs); the bracket shrinks to
     the interval below the first failing amplitude, so the bracket width
@@ -422,21 +431,25 @@ def survivable_step(
     Returns
     -------
     dict
-        ``"survived"``: largest amplitude known to be survived ``(n,)``, in
+        ``"handled"``: largest amplitude known to be handled ``(n,)``, in
         the manoeuvre's unit; ``"failed"``: smallest amplitude known to fail
         (``upper`` times the amplitude if none failed); ``"bounded"``: True
-        where ``upper`` itself was survived.
+        where ``upper`` itself was handled; ``"fraction"``: ``handled`` as a
+        fraction of the manoeuvre's amplitude.
     """
+    if criterion not in STEP_CRITERIA:
+        raise ValueError(f"criterion: expected one of {', '.join(STEP_CRITERIA)}, got {criterion!r}")
+    limits = criterion == "within_limits"
     n = plant.n
     m = points_per_round
-    lo = np.zeros(n)
+    lo = np.zeros(n) if lower is None else np.minimum(np.asarray(lower, dtype=float), float(upper))
     hi = np.full(n, float(upper))
-    top_ok = _survives(plant, K, manoeuvre, controller, hi)
+    top_ok = _survives(plant, K, manoeuvre, controller, hi, limits)
     rep = plant.take(np.repeat(np.arange(n), m))
     frac = np.arange(1, m + 1) / (m + 1)
     for _ in range(rounds):
         amps = lo[:, None] + (hi - lo)[:, None] * frac[None, :]
-        ok = _survives(rep, K, manoeuvre, controller, amps.reshape(-1)).reshape(n, m)
+        ok = _survives(rep, K, manoeuvre, controller, amps.reshape(-1), limits).reshape(n, m)
         first_fail = np.where(~ok.all(axis=1), np.argmin(ok, axis=1), m)
         new_lo = np.where(first_fail > 0, amps[np.arange(n), np.maximum(first_fail - 1, 0)], lo)
         new_hi = np.where(first_fail < m, amps[np.arange(n), np.minimum(first_fail, m - 1)], hi)
@@ -450,9 +463,11 @@ def survivable_step(
         "push": manoeuvre.push_force_n,
         "tilted_start": manoeuvre.initial_pitch_rad,
     }[manoeuvre.kind]
-    return {"survived": lo * amp, "failed": hi * amp, "bounded": top_ok}
+    return {"handled": lo * amp, "failed": hi * amp, "bounded": top_ok, "fraction": lo}
 
 
-def _survives(plant, K, manoeuvre, controller, scale) -> np.ndarray:
-    res = simulate(plant, K, manoeuvre, controller, scale=scale, stop_at_current_limit=True)
+def _survives(plant, K, manoeuvre, controller, scale, limits: bool = True) -> np.ndarray:
+    res = simulate(plant, K, manoeuvre, controller, scale=scale, stop_at_current_limit=limits)
+    if not limits:
+        return ~res.fell
     return ~res.fell & ~res.metrics["reached_current_limit"]

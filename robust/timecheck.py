@@ -3,8 +3,9 @@
 For each gain set and manoeuvre, the corners of the box plus the first
 ``study.simulation_samples`` Monte Carlo samples are simulated at once; the
 worst of each metric is reported with where it is, with response envelopes
-and the worst sample's trace for the dossier.  The survivable speed step and
-yaw-rate step of every model are found by bisection across the batch.
+and the worst sample's trace for the dossier.  The largest speed step and
+yaw-rate step every model handles (within the drive limits, and without a
+fall) are found by bracketing across the batch.
 """
 
 from __future__ import annotations
@@ -16,7 +17,8 @@ import numpy as np
 
 from robust.case import Case, Study
 from robust.gains import GainSet
-from robust.simulate import Envelope, Manoeuvre, Trace, simulate, survivable_step
+from robust.progress import bar
+from robust.simulate import Envelope, Manoeuvre, Trace, largest_step, simulate
 from robust.uncertainty import corners, monte_carlo
 
 Progress = Callable[[str], None]
@@ -67,16 +69,24 @@ class ManoeuvreResult:
 
 
 @dataclass(frozen=True)
-class Survivable:
-    """Largest survivable step per model (no fall, current limit never reached)."""
+class LargestStep:
+    """Largest command step each simulated model handles.
+
+    ``within_limits``: no fall and the current limit never reached;
+    ``without_fall``: no fall (the current limit may be reached).
+    ``worst*`` are the smallest values over the models, with where they are.
+    """
 
     kind: str
     unit: str
     points: np.ndarray
-    survived: np.ndarray
+    within_limits: np.ndarray
+    without_fall: np.ndarray
     bounded: np.ndarray
     worst: float
     worst_at: dict[str, float]
+    worst_without_fall: float
+    worst_without_fall_at: dict[str, float]
     upper: float
 
 
@@ -98,7 +108,7 @@ class TimeVerdict:
 class GainTimeCheck:
     gain: GainSet
     manoeuvres: tuple[ManoeuvreResult, ...]
-    survivable: tuple[Survivable, ...]
+    largest_steps: tuple[LargestStep, ...]
     verdicts: tuple[TimeVerdict, ...]
     passed: bool
 
@@ -133,12 +143,12 @@ def _at(names, point):
     return {n: float(v) for n, v in zip(names, point)}
 
 
-def survivable_manoeuvres(case: Case) -> tuple[tuple[Manoeuvre, float], ...]:
+def step_probes(case: Case) -> tuple[tuple[Manoeuvre, float], ...]:
     """The speed-step and yaw-rate-step probes and their amplitude bounds (the drive's no-load speed)."""
     v = case.vehicle
     no_load_wheel = v.drive.supply_v / v.drive.back_emf_v_s_per_rad
-    speed = Manoeuvre("survivable speed step", "speed_step", 3.0, start_s=0.1, speed_m_s=1.0)
-    yaw = Manoeuvre("survivable yaw-rate step", "yaw_rate_step", 2.0, start_s=0.1, yaw_rate_rad_s=1.0)
+    speed = Manoeuvre("largest speed step", "speed_step", 3.0, start_s=0.1, speed_m_s=1.0)
+    yaw = Manoeuvre("largest yaw-rate step", "yaw_rate_step", 2.0, start_s=0.1, yaw_rate_rad_s=1.0)
     return (
         (speed, no_load_wheel * v.wheel.radius_m),
         (yaw, no_load_wheel * v.wheel.radius_m / v.wheel.half_track_m),
@@ -146,9 +156,14 @@ def survivable_manoeuvres(case: Case) -> tuple[tuple[Manoeuvre, float], ...]:
 
 
 def time_check_gain(
-    case: Case, gain: GainSet, points: np.ndarray, *, progress: Progress | None = None
+    case: Case,
+    gain: GainSet,
+    points: np.ndarray,
+    *,
+    progress: Progress | None = None,
+    advance: Callable[[int], None] | None = None,
 ) -> GainTimeCheck:
-    """Simulate one gain set through every manoeuvre and find its survivable steps."""
+    """Simulate one gain set through every manoeuvre and find its largest command steps."""
     say = progress or (lambda _m: None)
     names = case.box.names
     plant = case.box.plant(points)
@@ -158,6 +173,8 @@ def time_check_gain(
     for man in case.manoeuvres:
         say(f"{gain.name}: simulating '{man.name}' on {plant.n} models")
         r = simulate(plant, gain.K, man, ctl, envelope=True)
+        if advance is not None:
+            advance(1)
         vals = dict(r.metrics)
         vals["peak_pitch_deg"] = np.degrees(vals.pop("peak_pitch_rad"))
         vals["peak_pitch_rate_deg_s"] = np.degrees(vals.pop("peak_pitch_rate_rad_s"))
@@ -194,20 +211,27 @@ def time_check_gain(
             )
         )
     surv = []
-    for man, upper in survivable_manoeuvres(case):
-        say(f"{gain.name}: bisecting the {man.name} on {plant.n} models")
-        s = survivable_step(plant, gain.K, man, ctl, upper=upper)
-        i = int(np.argmin(s["survived"]))
+    for man, upper in step_probes(case):
+        say(f"{gain.name}: {man.name} each of {plant.n} models handles")
+        s = largest_step(plant, gain.K, man, ctl, upper=upper, criterion="within_limits")
+        f = largest_step(plant, gain.K, man, ctl, upper=upper, criterion="without_fall", lower=s["fraction"])
+        if advance is not None:
+            advance(1)
+        i = int(np.argmin(s["handled"]))
+        j = int(np.argmin(f["handled"]))
         unit = "m/s" if man.kind == "speed_step" else "rad/s"
         surv.append(
-            Survivable(
+            LargestStep(
                 kind=man.kind,
                 unit=unit,
                 points=points,
-                survived=s["survived"],
+                within_limits=s["handled"],
+                without_fall=f["handled"],
                 bounded=s["bounded"],
-                worst=float(s["survived"][i]),
+                worst=float(s["handled"][i]),
                 worst_at=_at(names, points[i]),
+                worst_without_fall=float(f["handled"][j]),
+                worst_without_fall_at=_at(names, points[j]),
                 upper=float(upper),
             )
         )
@@ -242,8 +266,8 @@ def time_check_gain(
             )
         )
     for key, s in (
-        ("min_survivable_speed_step_m_s", surv[0]),
-        ("min_survivable_yaw_rate_step_rad_s", surv[1]),
+        ("min_speed_step_within_limits_m_s", surv[0]),
+        ("min_yaw_rate_step_within_limits_rad_s", surv[1]),
     ):
         if key in req:
             verdicts.append(
@@ -254,8 +278,8 @@ def time_check_gain(
                     s.unit,
                     s.worst >= req[key],
                     s.worst - req[key],
-                    int(np.sum(s.survived < req[key])),
-                    s.survived.size,
+                    int(np.sum(s.within_limits < req[key])),
+                    s.within_limits.size,
                 )
             )
     if case.manoeuvres:
@@ -275,7 +299,7 @@ def time_check_gain(
     return GainTimeCheck(
         gain=gain,
         manoeuvres=tuple(results),
-        survivable=tuple(surv),
+        largest_steps=tuple(surv),
         verdicts=tuple(verdicts),
         passed=all(v.passed for v in verdicts),
     )
@@ -289,7 +313,9 @@ def run_time_check(
     if not gains:
         raise ValueError("no gain set to simulate: add [gains.NAME] to the case or pass a gain file")
     points = simulation_points(case, study)
-    checks = tuple(time_check_gain(case, g, points, progress=progress) for g in gains)
+    total = len(gains) * (len(case.manoeuvres) + 2)
+    with bar(progress, total, f"time-domain check of {len(gains)} gain sets on {len(points)} models") as advance:
+        checks = tuple(time_check_gain(case, g, points, progress=progress, advance=advance) for g in gains)
     return TimeCheckResult(
         title=case.title,
         case_sha256=case.sha256,

@@ -9,6 +9,7 @@ is what the dynamics and the linear models consume.
 
 from __future__ import annotations
 
+import math
 from collections.abc import Mapping
 from dataclasses import dataclass, fields, replace
 from functools import cached_property
@@ -80,6 +81,7 @@ class ParameterInfo:
     unit: str
     text: str
     sign: str  # "positive", "nonnegative" or "any"
+    plausible: tuple[float, float] = (-math.inf, math.inf)  # physical plausibility bounds, same unit
 
 
 PARAMETERS: dict[str, ParameterInfo] = {}
@@ -88,7 +90,28 @@ PARAMETERS: dict[str, ParameterInfo] = {}
 def _register(group: str, field: str, unit: str, text: str, allow_zero: bool = False) -> None:
     name = f"{group}.{field}"
     sign = "nonnegative" if allow_zero else "positive"
-    PARAMETERS[name] = ParameterInfo(name, unit, text, sign)
+    PARAMETERS[name] = ParameterInfo(name, unit, text, sign, _PLAUSIBLE.get(field, (-math.inf, math.inf)))
+
+
+# Plausibility bounds for a wheeled vehicle that a person could ride or walk beside (common practice:
+# generous by orders of magnitude, they only catch unit slips and typing errors such as 1e300).
+_PLAUSIBLE = {
+    "radius_m": (1e-3, 2.0),
+    "mass_kg": (0.0, 1e4),
+    "spin_inertia_kg_m2": (0.0, 1e3),
+    "diametral_inertia_kg_m2": (0.0, 1e3),
+    "half_track_m": (1e-3, 5.0),
+    "bearing_friction_n_m_s_per_rad": (0.0, 1e3),
+    "cg_height_m": (-10.0, 10.0),
+    "roll_inertia_kg_m2": (0.0, 1e5),
+    "pitch_inertia_kg_m2": (0.0, 1e5),
+    "yaw_inertia_kg_m2": (0.0, 1e5),
+    "torque_constant_n_m_per_a": (1e-4, 1e3),
+    "back_emf_v_s_per_rad": (1e-4, 1e3),
+    "resistance_ohm": (1e-5, 1e3),
+    "supply_v": (0.1, 1e4),
+    "current_limit_a": (1e-3, 1e5),
+}
 
 
 for _g in ("wheel",):
@@ -301,6 +324,13 @@ def check_physical(values: Mapping[str, np.ndarray], *, where: str = "") -> None
         arr = np.atleast_1d(np.asarray(value, dtype=float))
         if not np.all(np.isfinite(arr)):
             raise ValueError(f"{where}{name}: expected a finite number [{info.unit}], got {value!r}")
+        lo, hi = info.plausible
+        out = (arr < lo) | (arr > hi)
+        if np.any(out):
+            raise ValueError(
+                f"{where}{name}: {info.text} {arr[out][0]:g} {info.unit} is outside the plausible range "
+                f"{lo:g} to {hi:g} {info.unit} (check the unit)"
+            )
         if info.sign == "any":
             continue
         bad = arr < 0 if info.sign == "nonnegative" else arr <= 0

@@ -11,9 +11,6 @@ from __future__ import annotations
 import csv
 import html
 import io
-import os
-import shutil
-import tempfile
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -21,6 +18,7 @@ import numpy as np
 
 from robust.analysis.metrics import METRICS
 from robust.dynamics import torque_envelope
+from robust.outputs import FolderTarget, file_stems, staged_folder
 from robust.report import figures as F
 from robust.report.jsonout import dumps
 from robust.report.text import fmt, time_verdict_row
@@ -290,7 +288,9 @@ def _blocks(d, today: str) -> tuple[list, list[Figure]]:
         B.append(_h(2, "LMI synthesis"))
         B.append(_p(f"The synthesis requested by the case could not be certified: {d.design_error}"))
     # per gain set
+    stems = file_stems(g.gain.name for g in chk.gains)
     for gi, g in enumerate(chk.gains):
+        stem = stems[g.gain.name]
         B.append(_h(2, f"Gain set '{g.gain.name}' ({g.gain.origin})"))
         units = ("N m s/m", "N m s/rad", "N m/rad", "N m s/rad")
         B.append(
@@ -298,7 +298,7 @@ def _blocks(d, today: str) -> tuple[list, list[Figure]]:
                 "Gain K (u = -K (x - x_ref))",
                 ["wheel", *(f"{s} [{u}]" for s, u in zip(("speed", "yaw_rate", "pitch", "pitch_rate"), units))],
                 [[w, *(fmt(v, 5) for v in row)] for w, row in zip(("left", "right"), g.gain.K)],
-                f"{g.gain.name}_gain",
+                f"{stem}_gain",
             )
         )
         prov = [[k, str(v)] for k, v in sorted(g.gain.provenance.items())]
@@ -339,7 +339,7 @@ def _blocks(d, today: str) -> tuple[list, list[Figure]]:
                     "worst at",
                 ],
                 rows,
-                f"{g.gain.name}_summary",
+                f"{stem}_summary",
             )
         )
         cv = g.corner_values
@@ -358,7 +358,7 @@ def _blocks(d, today: str) -> tuple[list, list[Figure]]:
                 "Per corner (* = worst corner for that metric)",
                 ["corner", *chk.parameter_names, *mnames],
                 rows,
-                f"{g.gain.name}_corners",
+                f"{stem}_corners",
             )
         )
         keys = list(g.inputs[0].nominal)
@@ -367,7 +367,7 @@ def _blocks(d, today: str) -> tuple[list, list[Figure]]:
                 "Margins per wheel input (nominal | worst over corners and samples)",
                 ["margin", *(f"{i.wheel} wheel" for i in g.inputs)],
                 [[k, *(f"{fmt(i.nominal[k])} | {fmt(i.worst[k])}" for i in g.inputs)] for k in keys],
-                f"{g.gain.name}_margins",
+                f"{stem}_margins",
             )
         )
         rows = []
@@ -404,11 +404,12 @@ def _blocks(d, today: str) -> tuple[list, list[Figure]]:
                         "P(fail) interval",
                     ],
                     rows,
-                    f"{g.gain.name}_verdicts",
+                    f"{stem}_verdicts",
                 )
             )
         if tm is not None:
             tg = tm.gains[gi]
+            mstems = file_stems(m.name for m in tg.manoeuvres)
             for m in tg.manoeuvres:
                 rows = [
                     [
@@ -425,7 +426,7 @@ def _blocks(d, today: str) -> tuple[list, list[Figure]]:
                         f"Manoeuvre '{m.name}' ({m.kind}): {m.fell} of {m.models} models fell",
                         ["metric", "unit", "median", "worst", "worst at"],
                         rows,
-                        f"{g.gain.name}_{m.name}",
+                        f"{stem}_{mstems[m.name]}",
                     )
                 )
             rows = [
@@ -443,7 +444,7 @@ def _blocks(d, today: str) -> tuple[list, list[Figure]]:
                     "Survivable command steps (no fall, current limit never reached)",
                     ["step", "unit", "median", "worst", "worst at"],
                     rows,
-                    f"{g.gain.name}_survivable",
+                    f"{stem}_survivable",
                 )
             )
             rows = [time_verdict_row(v) for v in tg.verdicts]
@@ -453,7 +454,7 @@ def _blocks(d, today: str) -> tuple[list, list[Figure]]:
                         "Requirement verdicts (time domain)",
                         ["requirement", "bound", "worst", "unit", "margin", "verdict", "failing runs"],
                         rows,
-                        f"{g.gain.name}_time_verdicts",
+                        f"{stem}_time_verdicts",
                     )
                 )
     B.append(_h(2, "Figures"))
@@ -496,13 +497,15 @@ def figure_plan(d) -> list[tuple[str, str, object]]:
         w = np.linspace(-1.2, 1.2, 200) * v.drive.supply_v / v.drive.back_emf_v_s_per_rad
         env = torque_envelope(plant_batch(v), w[None, :])
         drive_env = {"speed": w, "low": env["low"][0], "high": env["high"][0]}
+        stems = file_stems(tg.gain.name for tg in tm.gains)
         for tg in tm.gains:
             name = tg.gain.name
+            stem = stems[name]
             if tg.manoeuvres:
                 m = tg.manoeuvres[0]
                 plan.append(
                     (
-                        f"{name}_envelope",
+                        f"{stem}_envelope",
                         f"Response envelopes of '{name}' in '{m.name}' (min / median / max over corners and "
                         "samples), the worst sample's trace, and the drive's torque-speed envelope with that "
                         "sample's path.",
@@ -515,7 +518,7 @@ def figure_plan(d) -> list[tuple[str, str, object]]:
                 s = tg.survivable[0]
                 plan.append(
                     (
-                        f"{name}_survivable",
+                        f"{stem}_survivable",
                         f"Largest survivable speed step of every simulated model for '{name}'.",
                         lambda s=s, name=name: F.survivable_map(
                             case.box.names, s.points, s.survived, s.unit, f"Survivable speed step, '{name}'"
@@ -646,13 +649,11 @@ def render_pdf(blocks, figs, path: Path) -> None:
                 plt.close(f.mpl)
 
 
-def write_dossier(d, out_dir: Path, *, today: str) -> dict[str, Path]:
-    """Write every dossier file into ``out_dir`` atomically; returns the main file paths."""
-    out_dir = Path(out_dir)
+def write_dossier(d, target: FolderTarget, *, today: str) -> dict[str, Path]:
+    """Write every dossier file into the checked folder ``target`` crash-safely; returns the main paths."""
+    out_dir = target.path
     blocks, figs = _blocks(d, today)
-    out_dir.parent.mkdir(parents=True, exist_ok=True)
-    tmp = Path(tempfile.mkdtemp(prefix=f".{out_dir.name}.", dir=out_dir.parent))
-    try:
+    with staged_folder(target) as tmp:
         (tmp / "tables").mkdir()
         (tmp / "figures").mkdir()
         for b in blocks:
@@ -677,18 +678,6 @@ def write_dossier(d, out_dir: Path, *, today: str) -> dict[str, Path]:
         (tmp / "results.json").write_text(dumps(results), encoding="utf-8")
         _pdf_with_figures(blocks, d, tmp / "dossier.pdf")
         (tmp / "COMPLETE").write_text(f"dossier complete; generated {today}\n", encoding="utf-8")
-        old = None
-        if out_dir.exists():
-            old = out_dir.with_name(f".{out_dir.name}.old")
-            if old.exists():
-                shutil.rmtree(old)
-            os.replace(out_dir, old)
-        os.replace(tmp, out_dir)
-        if old is not None:
-            shutil.rmtree(old, ignore_errors=True)
-    except BaseException:
-        shutil.rmtree(tmp, ignore_errors=True)
-        raise
     return {
         "folder": out_dir,
         "html": out_dir / "dossier.html",
@@ -699,6 +688,7 @@ def write_dossier(d, out_dir: Path, *, today: str) -> dict[str, Path]:
 
 
 def _safe(name: str) -> str:
+    """A fixed file name made safe (user-given names go through :func:`robust.outputs.file_stems` first)."""
     return "".join(c if c.isalnum() or c in "-_" else "_" for c in name)
 
 

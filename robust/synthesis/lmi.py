@@ -33,6 +33,7 @@ solver says, and a failed solve falls back to the next solver.
 from __future__ import annotations
 
 import warnings
+from collections.abc import Callable
 from dataclasses import dataclass, field, replace
 
 import cvxpy as cp
@@ -198,6 +199,30 @@ def _kron_block(L, M, Xbar, S):
 def _kron_value(L, M, Xbar, S):
     m = L.shape[0]
     return np.block([[L[a, b] * Xbar + M[a, b] * S + M[b, a] * S.T for b in range(m)] for a in range(m)])
+
+
+STATUS_WORDS = {
+    "optimal": "solved to the solver's accuracy",
+    "optimal_inaccurate": "solved only approximately (the solver stopped before its accuracy target)",
+    "infeasible": "the solver proved that no solution exists",
+    "infeasible_inaccurate": "the solver found the request probably impossible (not proved)",
+    "unbounded": "the problem is unbounded (a modelling error)",
+    "unbounded_inaccurate": "the problem is probably unbounded (a modelling error)",
+    "user_limit": "the solver stopped at its iteration or time limit (not a proof of anything)",
+    "solver_error": "the solver failed numerically (not a proof of anything)",
+}
+
+
+def explain_status(status: str) -> str:
+    """A solver status (``"clarabel: optimal_inaccurate"`` or ``"optimal"``) in plain words."""
+    parts = [p.strip() for p in str(status).split(";")]
+    out = []
+    for p in parts:
+        solver, _, st = p.rpartition(":")
+        st = st.strip()
+        words = STATUS_WORDS.get(st, st)
+        out.append(f"{solver.strip()}: {words}" if solver else words)
+    return "; ".join(out)
 
 
 def _solve(prob: cp.Problem):
@@ -410,8 +435,10 @@ def _pdlf(poly: Polytope, spec: Spec, alpha: float, delta: float, eps: float):
 EPSILONS = (0.03, 0.1, 0.3, 1.0)
 
 
-def _attempt(poly, spec, alpha, delta):
+def _attempt(poly, spec, alpha, delta, say=None):
     """One solve at decay rate ``alpha``; returns (result or None, status text, solves)."""
+    if say is not None:
+        say(f"LMI solve at decay rate {alpha:.4g} 1/s on {poly.vertices} vertices")
     if spec.lyapunov == "common":
         res, status = _common(poly, spec, alpha, delta)
         ok = res is not None and res["certificate"].passed
@@ -428,7 +455,7 @@ def _attempt(poly, spec, alpha, delta):
     return best, last, count
 
 
-def _bisect(poly, spec, lo: float, hi: float, delta: float, steps: int):
+def _bisect(poly, spec, lo: float, hi: float, delta: float, steps: int, say=None):
     """Largest decay rate in ``[lo, hi]`` that certifies (``lo`` assumed feasible).
 
     Returns ``(rate, result at that rate or None if only lo is known, solves)``.
@@ -437,7 +464,7 @@ def _bisect(poly, spec, lo: float, hi: float, delta: float, steps: int):
     solves = 0
     for _ in range(steps):
         mid = 0.5 * (lo + hi)
-        r, _s, c = _attempt(poly, spec, mid, delta)
+        r, _s, c = _attempt(poly, spec, mid, delta, say)
         solves += c
         if r is not None:
             lo, best = mid, r
@@ -446,7 +473,14 @@ def _bisect(poly, spec, lo: float, hi: float, delta: float, steps: int):
     return lo, best, solves
 
 
-def synthesize(poly: Polytope, spec: Spec, *, delta: float = 1e-6, bisection_steps: int = 8) -> SynthesisResult:
+def synthesize(
+    poly: Polytope,
+    spec: Spec,
+    *,
+    delta: float = 1e-6,
+    bisection_steps: int = 8,
+    progress: Callable[[str], None] | None = None,
+) -> SynthesisResult:
     """Synthesize one gain for the whole polytope.
 
     Raises
@@ -460,14 +494,15 @@ def synthesize(poly: Polytope, spec: Spec, *, delta: float = 1e-6, bisection_ste
         raise ValueError(f"objective: expected 'decay', 'gain' or 'cost', got {spec.objective!r}")
     if spec.lyapunov not in ("common", "parameter_dependent"):
         raise ValueError(f"lyapunov: expected 'common' or 'parameter_dependent', got {spec.lyapunov!r}")
+    say = progress
     solves = 0
-    res, status, c = _attempt(poly, spec, spec.decay_rate, delta)
+    res, status, c = _attempt(poly, spec, spec.decay_rate, delta, say)
     solves += c
     if res is None:
         # what can be met: bisect the decay rate below the requested one
         lo, hi = 0.0, spec.decay_rate
         best = None
-        base, st0, c = _attempt(poly, spec, 0.0, delta)
+        base, st0, c = _attempt(poly, spec, 0.0, delta, say)
         solves += c
         if base is None:
             parts = ["stability of every model"]
@@ -479,26 +514,39 @@ def synthesize(poly: Polytope, spec: Spec, *, delta: float = 1e-6, bisection_ste
                 parts.append(f"wheel torque <= {spec.torque_limit:g} N m for the stated initial states")
             raise Infeasible(
                 f"no gain could be certified for {', '.join(parts)} over this polytope "
-                f"({poly.route}, {poly.vertices} vertices, {spec.lyapunov} Lyapunov matrix; solver said: {st0}). "
+                f"({poly.route}, {poly.vertices} vertices, {spec.lyapunov} Lyapunov matrix; {explain_status(st0)}). "
                 "Relax the damping, frequency or torque request, narrow the ranges, or try the other route."
             )
-        best, _r, c = _bisect(poly, spec, lo, hi, delta, bisection_steps)
+        # grow from below: the feasible interval is usually far below an infeasible request
+        lo, hi = 0.0, None
+        trial = min(0.25, spec.decay_rate / 2)
+        while trial < spec.decay_rate:
+            r, _s, c = _attempt(poly, spec, trial, delta, say)
+            solves += c
+            if r is None:
+                hi = trial
+                break
+            lo, trial = trial, 2.0 * trial
+        if hi is None:
+            hi = spec.decay_rate
+        best, _r, c = _bisect(poly, spec, lo, hi, delta, bisection_steps, say)
         solves += c
         raise Infeasible(
             f"decay rate {spec.decay_rate:g} 1/s could not be certified over this polytope "
             f"({poly.route}, {spec.lyapunov} Lyapunov matrix) with the other constraints kept; "
-            f"the largest certifiable decay rate is about {best:.4g} 1/s"
+            f"the largest certifiable decay rate is about {best:.4g} 1/s (certified; "
+            f"{(hi - lo) / 2**bisection_steps:.2g} 1/s resolution)"
         )
     alpha = spec.decay_rate
     if spec.objective == "decay":
         lo, hi = alpha, max(2.0 * alpha, 1.0)
         while True:  # grow the bracket (up to 64 1/s: faster is beyond any drive)
-            r, _s, c = _attempt(poly, spec, hi, delta)
+            r, _s, c = _attempt(poly, spec, hi, delta, say)
             solves += c
             if r is None or hi >= 64.0:
                 break
             lo, res, hi = hi, r, 2.0 * hi
-        alpha, r, c = _bisect(poly, spec, lo, hi, delta, bisection_steps)
+        alpha, r, c = _bisect(poly, spec, lo, hi, delta, bisection_steps, say)
         solves += c
         res = r or res
     cert = res["certificate"]

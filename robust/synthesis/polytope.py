@@ -67,6 +67,11 @@ class Polytope:
     def vertices(self) -> int:
         return int(self.A.shape[0])
 
+    @property
+    def rigorous(self) -> bool:
+        """True when containment of every model of the box is proved (not only checked on samples)."""
+        return self.route == "moment_box"
+
 
 def _entries(A: np.ndarray, B: np.ndarray) -> np.ndarray:
     return np.concatenate([A.reshape(A.shape[0], -1), B.reshape(B.shape[0], -1)], axis=1)
