@@ -3,32 +3,37 @@
 from __future__ import annotations
 
 import argparse
+import os
 import sys
 from collections.abc import Sequence
 
 from robust import __version__
-from robust.case import CaseError, load_case
+
+# Heavy modules (numpy, scipy, cvxpy) are imported inside the commands, under the error boundary of
+# main(), so that Ctrl-C or a broken install during start-up gives a message, not a traceback.
 
 
-def _model(args: argparse.Namespace) -> int:
+def _emit(text: str) -> None:
+    """Write a result to standard output now (an unwritable output is reported at the boundary)."""
+    sys.stdout.write(text)
+    sys.stdout.flush()
+
+
+def _model(args: argparse.Namespace, progress) -> int:
+    from robust.case import load_case
     from robust.modelfacts import model_facts
     from robust.report.jsonout import dumps
     from robust.report.text import model_text
 
     case = load_case(args.case)
+    progress("model facts of the nominal vehicle and the box corners")
     facts = model_facts(case)
-    sys.stdout.write(dumps(facts) if args.json else model_text(facts))
+    _emit(dumps(facts) if args.json else model_text(facts))
     return 0
 
 
-def _progress(quiet: bool):
-    if quiet:
-        return None
-    return lambda msg: print(f"robust: {msg}", file=sys.stderr, flush=True)
-
-
 def _gain_sets(case, names, files):
-    from robust.case import resolve_gain
+    from robust.case import CaseError, resolve_gain
     from robust.gains import read_gain_file
 
     specs = {s.name: s for s in case.gains}
@@ -38,63 +43,71 @@ def _gain_sets(case, names, files):
     chosen = names if names else ([] if files else list(specs))
     gains = [resolve_gain(case, specs[n]) for n in chosen]
     gains += [read_gain_file(f) for f in files or []]
+    seen: set[str] = set()
+    for g in gains:
+        if g.name in seen:
+            raise CaseError(f"two gain sets are named {g.name!r}; gain set names must differ")
+        seen.add(g.name)
     return gains
 
 
-def _check(args: argparse.Namespace) -> int:
-    from robust.check import run_check, with_overrides
-    from robust.report.jsonout import dumps
-    from robust.report.text import check_text
+def _study(case, args):
+    from robust.case import check_study_budget
+    from robust.check import with_overrides
 
-    case = load_case(args.case)
-    gains = _gain_sets(case, args.gain, args.gain_file)
     study = with_overrides(
         case.study,
-        plan=args.plan,
-        samples=args.samples,
-        seed=args.seed,
-        search=False if args.no_search else None,
+        plan=getattr(args, "plan", None),
+        samples=getattr(args, "samples", None),
+        seed=getattr(args, "seed", None),
+        search=False if getattr(args, "no_search", False) else None,
+        simulation_samples=getattr(args, "simulation_samples", None),
     )
-    result = run_check(case, gains, study=study, progress=_progress(args.quiet))
-    if args.json:
-        sys.stdout.write(dumps(result))
-    elif args.compare:
-        from robust.report.text import compare_text
-
-        sys.stdout.write(compare_text(result))
-    else:
-        sys.stdout.write(check_text(result))
-    return 0 if result.passed else 1
+    check_study_budget(study, len(case.box.ranges), where="--samples/--seed/[study]")
+    return study
 
 
-def _simulate(args: argparse.Namespace) -> int:
+def _check(args: argparse.Namespace, progress) -> int:
+    from robust.assess import assess
+    from robust.case import load_case
     from robust.report.jsonout import dumps
-    from robust.report.text import time_text
-    from robust.timecheck import run_time_check
+    from robust.report.text import assessment_text
 
     case = load_case(args.case)
-    if not case.manoeuvres:
-        raise CaseError(f"{args.case}: no [manoeuvres.NAME] tables: nothing to simulate")
     gains = _gain_sets(case, args.gain, args.gain_file)
-    study = case.study
-    if args.simulation_samples is not None:
-        from dataclasses import replace
-
-        study = replace(study, simulation_samples=args.simulation_samples)
-    if args.seed is not None:
-        from dataclasses import replace
-
-        study = replace(study, seed=args.seed)
-    result = run_time_check(case, gains, study=study, progress=_progress(args.quiet))
-    sys.stdout.write(dumps(result) if args.json else time_text(result))
-    return 0 if result.passed else 1
+    study = _study(case, args)
+    a = assess(case, gains, study=study, time=not args.linear_only, progress=progress)
+    if args.json:
+        _emit(dumps({"check": a.check, "time": a.time, "verdicts": a.verdicts}))
+    else:
+        _emit(assessment_text(case, a, view="compare" if args.compare else "linear"))
+    return 0 if a.passed else 1
 
 
-def _synthesize(args: argparse.Namespace) -> int:
+def _simulate(args: argparse.Namespace, progress) -> int:
+    from robust.assess import assess
+    from robust.case import load_case
+    from robust.report.jsonout import dumps
+    from robust.report.text import assessment_text
+
+    case = load_case(args.case)
+    gains = _gain_sets(case, args.gain, args.gain_file)
+    study = _study(case, args)
+    a = assess(case, gains, study=study, progress=progress)
+    if args.json:
+        _emit(dumps({"check": a.check, "time": a.time, "verdicts": a.verdicts}))
+    else:
+        _emit(assessment_text(case, a, view="time"))
+    return 0 if a.passed else 1
+
+
+def _synthesize(args: argparse.Namespace, progress) -> int:
     from pathlib import Path
 
+    from robust.case import CaseError, load_case
     from robust.design import design
     from robust.gains import write_gain_file
+    from robust.outputs import check_name, plan_gain_file
     from robust.report.jsonout import dumps
     from robust.report.text import design_text
     from robust.synthesis.lmi import Infeasible
@@ -102,51 +115,43 @@ def _synthesize(args: argparse.Namespace) -> int:
     case = load_case(args.case)
     if not case.box.ranges:
         raise CaseError(f"{args.case}: no [ranges]: nothing to make robust (use a nominal design)")
+    name = check_name(args.name, "--name") if args.name else case.synthesis.get("name", "lmi")
+    target = plan_gain_file(args.out or Path("gains") / f"{name}.toml", protect=[args.case])
     others = _gain_sets(case, args.gain, None) if args.gain or case.gains else []
-    overrides = {
-        "route": args.route,
-        "lyapunov": args.lyapunov,
-        "objective": args.objective,
-        "name": args.name,
-    }
+    if any(g.name == name for g in others):
+        raise CaseError(f"the new gain's name {name!r} is also a gain set of the case; choose another with --name")
+    overrides = {"route": args.route, "lyapunov": args.lyapunov, "objective": args.objective, "name": args.name}
     try:
-        d = design(case, overrides=overrides, progress=_progress(args.quiet), compare_with=others)
+        d = design(case, overrides=overrides, progress=progress, compare_with=others)
     except Infeasible as exc:
         raise CaseError(f"synthesis infeasible: {exc}") from None
-    out = Path(args.out) if args.out else Path("gains") / f"{d.gain.name}.toml"
-    write_gain_file(out, d.gain)
-    print(f"robust: gain written to {out}", file=sys.stderr)
-    sys.stdout.write(dumps(d) if args.json else design_text(d))
-    return 0 if d.check.gains[0].passed else 1
+    write_gain_file(target.path, d.gain)
+    progress(f"gain written to {target.path}")
+    _emit(dumps(d) if args.json else design_text(case, d))
+    return 0 if d.assessment.passed else 1
 
 
-def _dossier(args: argparse.Namespace) -> int:
+def _dossier(args: argparse.Namespace, progress) -> int:
     from pathlib import Path
 
+    from robust.case import load_case
     from robust.dossier import run_dossier, today
     from robust.gains import read_gain_file
+    from robust.outputs import plan_folder
     from robust.report.dossier import write_dossier
-    from robust.report.text import compare_text
+    from robust.report.text import dossier_text
 
     case = load_case(args.case)
     files = [read_gain_file(f) for f in args.gain_file or []]
-    data = run_dossier(case, gain_files=files, synthesize=not args.no_synthesis, progress=_progress(args.quiet))
     out = Path(args.out) if args.out else Path("reports") / Path(args.case).stem
-    paths = write_dossier(data, out, today=today())
-    sys.stdout.write(compare_text(data.check))
-    if data.time is not None:
-        verdicts = ", ".join(f"{g.gain.name}: {'PASS' if g.passed else 'FAIL'}" for g in data.time.gains)
-        sys.stdout.write(f"\nTime-domain verdicts: {verdicts}\n")
-    if data.design_error:
-        sys.stdout.write(f"\nSynthesis: {data.design_error}\n")
-    sys.stdout.write(
-        f"\nDossier written to {paths['folder']}/ (dossier.html, dossier.pdf, dossier.md, "
-        "results.json, tables/*.csv, figures/*.svg)\n"
-    )
+    target = plan_folder(out, protect=[args.case, *(args.gain_file or [])])
+    data = run_dossier(case, gain_files=files, synthesize=not args.no_synthesis, progress=progress)
+    progress(f"writing the dossier to {target.path}")
+    paths = write_dossier(data, target, today=today())
+    _emit(dossier_text(data, paths["folder"]))
     if not args.strict:
         return 0
-    both = [c.passed and (data.time is None or data.time.gains[i].passed) for i, c in enumerate(data.check.gains)]
-    return 0 if any(both) else 1
+    return 0 if any(v.passed for v in data.verdicts) else 1
 
 
 def _whole(low: int):
@@ -175,6 +180,7 @@ def _study_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("--samples", type=_positive_int, help="number of samples (random plans)")
     p.add_argument("--seed", type=_seed, help="seed for sampling and search")
     p.add_argument("--no-search", action="store_true", help="skip the worst-case search inside the box")
+    p.add_argument("--simulation-samples", type=_nonneg_int, help="Monte Carlo samples simulated besides the corners")
     p.add_argument("--quiet", action="store_true", help="no progress messages")
 
 
@@ -208,6 +214,11 @@ def build_parser() -> argparse.ArgumentParser:
         file_help="gain file to check as well (repeatable)",
     )
     _study_options(p)
+    p.add_argument(
+        "--linear-only",
+        action="store_true",
+        help="skip the time-domain check (the verdict is then INCOMPLETE, never PASS)",
+    )
     p.add_argument("--compare", action="store_true", help="one column per gain set instead of one block each")
     p.add_argument("--json", action="store_true", help="print JSON instead of text")
     p.set_defaults(func=_check)
@@ -221,9 +232,7 @@ def build_parser() -> argparse.ArgumentParser:
         case_help="gain set from the case (repeatable; default all)",
         file_help="gain file to simulate as well (repeatable)",
     )
-    p.add_argument("--simulation-samples", type=_nonneg_int, help="Monte Carlo samples besides the corners")
-    p.add_argument("--seed", type=_seed, help="seed of the Monte Carlo samples")
-    p.add_argument("--quiet", action="store_true", help="no progress messages")
+    _study_options(p)
     p.add_argument("--json", action="store_true", help="print JSON instead of text (includes envelopes and traces)")
     p.set_defaults(func=_simulate)
 
@@ -237,7 +246,7 @@ def build_parser() -> argparse.ArgumentParser:
     )
     p.add_argument("--lyapunov", choices=("common", "parameter_dependent"), help="Lyapunov matrix (default common)")
     p.add_argument("--objective", choices=("gain", "decay", "cost"), help="what to optimise (default gain)")
-    p.add_argument("--name", help="name of the new gain set (default: case or 'lmi')")
+    p.add_argument("--name", help="name of the new gain set: letters, digits, '-', '_' (default: case or 'lmi')")
     p.add_argument("--out", metavar="PATH", help="gain file to write (default gains/NAME.toml)")
     p.add_argument("--quiet", action="store_true", help="no progress messages")
     p.add_argument("--json", action="store_true", help="print JSON instead of text")
@@ -249,34 +258,97 @@ def build_parser() -> argparse.ArgumentParser:
     )
     p.add_argument("case", help="case file (TOML)")
     p.add_argument("--gain-file", action="append", metavar="PATH", help="gain file to include (repeatable)")
-    p.add_argument("--out", metavar="DIR", help="output folder (default reports/<case name>)")
+    p.add_argument(
+        "--out",
+        metavar="DIR",
+        help="output folder (default reports/<case name>); an existing folder is replaced only if this tool wrote it",
+    )
     p.add_argument("--no-synthesis", action="store_true", help="leave out the LMI synthesis the case asks for")
-    p.add_argument("--strict", action="store_true", help="exit 1 unless at least one gain set meets every requirement")
+    p.add_argument(
+        "--strict", action="store_true", help="exit 1 unless at least one gain set's overall verdict is PASS"
+    )
     p.add_argument("--quiet", action="store_true", help="no progress messages")
     p.set_defaults(func=_dossier)
     return parser
 
 
 def main(argv: Sequence[str] | None = None) -> int:
-    """Run the command line; returns the exit code (0 ok, 1 a requirement failed, 2 bad input)."""
-    parser = build_parser()
+    """Run the command line; returns the exit code.
+
+    0 ok (every gain set's overall verdict PASS), 1 a verdict is FAIL or
+    INCOMPLETE, 2 bad input or an output that cannot be written, 3 an
+    internal error, 130 interrupted.  Never a traceback (set ROBUST_DEBUG=1
+    to see one for an internal error).
+    """
+    progress = None
     try:
-        args = parser.parse_args(argv)
-    except SystemExit as exc:  # argparse exits 2 on usage errors, 0 on --help
-        return int(exc.code or 0)
-    try:
-        return int(args.func(args))
-    except (CaseError, ValueError) as exc:
+        parser = build_parser()
+        try:
+            args = parser.parse_args(argv)
+        except SystemExit as exc:  # argparse exits 2 on usage errors, 0 on --help
+            return int(exc.code or 0)
+        from robust.progress import Progress
+
+        progress = Progress(enabled=not getattr(args, "quiet", False))
+        return int(args.func(args, progress))
+    except KeyboardInterrupt:
+        _quiet_stdout()
+        print("robust: interrupted; nothing half-written was left behind", file=sys.stderr)
+        return 130
+    except ValueError as exc:  # CaseError, OutputError and every validation error
         print(f"robust: error: {exc}", file=sys.stderr)
         return 2
-    except KeyboardInterrupt:
-        print("robust: interrupted", file=sys.stderr)
-        return 130
+    except OSError as exc:
+        _quiet_stdout()
+        where = f" '{exc.filename}'" if exc.filename else (" standard output" if _stdout_failed(exc) else "")
+        stage = f" (while {progress.stage})" if progress is not None else ""
+        print(f"robust: error: cannot read or write{where}: {exc.strerror or exc}{stage}", file=sys.stderr)
+        return 2
+    except MemoryError:
+        print("robust: error: out of memory; use fewer samples or grid points", file=sys.stderr)
+        return 2
+    except Exception as exc:  # library failures: say what was being computed
+        if os.environ.get("ROBUST_DEBUG"):
+            raise
+        stage = progress.stage if progress is not None else "starting"
+        kind = type(exc).__name__
+        numeric = kind in ("LinAlgError", "SolverError", "FloatingPointError", "ZeroDivisionError")
+        print(
+            f"robust: error while {stage}: {kind}: {exc}"
+            + (
+                "; the numbers of this case or gain set make the computation fail: check the gain and the ranges"
+                if numeric
+                else "; this is a fault of the tool, please report it with the case file"
+            ),
+            file=sys.stderr,
+        )
+        return 2 if numeric else 3
+
+
+def _stdout_failed(exc: OSError) -> bool:
+    import errno
+
+    return exc.errno in (errno.ENOSPC, errno.EPIPE, errno.EBADF)
+
+
+def _quiet_stdout() -> None:
+    """After a failed write to standard output, point it at the null device so exit does not fail again."""
+    try:
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())
+        os.close(devnull)
+    except (OSError, ValueError, AttributeError):
+        pass
 
 
 def main_entry() -> None:
     """Console-script entry point."""
-    sys.exit(main())
+    try:
+        code = main()
+    except KeyboardInterrupt:
+        code = 130
+        print("robust: interrupted", file=sys.stderr)
+    sys.exit(code)
 
 
 if __name__ == "__main__":  # pragma: no cover

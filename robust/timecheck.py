@@ -188,10 +188,13 @@ def time_check_gain(
             i = int(np.argmax(v))
             worst.append(TimeWorst(key, unit, float(v[i]), float(np.median(v)), _at(names, points[i])))
             all_metrics.setdefault(key, []).append(v)
-            if key.startswith("speed_settling") and not man.steps_speed:
-                all_metrics[key].pop()
-            if key.startswith("yaw_rate_settling") and not man.steps_yaw_rate:
-                all_metrics[key].pop()
+        stepped = [
+            _reduce(vals[k])
+            for k, on in (("speed_settling_time_s", man.steps_speed), ("yaw_rate_settling_time_s", man.steps_yaw_rate))
+            if on and k in vals
+        ]
+        if stepped:  # one value per run: the later of speed and yaw-rate settling
+            all_metrics.setdefault("settling_time_s", []).append(np.max(np.stack(stepped), axis=0))
         badness = np.where(r.fell, np.inf, vals["peak_pitch_deg"])
         iw = int(np.argmax(np.where(r.fell, -r.fall_time_s, badness)) if r.fell.any() else np.argmax(badness))
         tr = simulate(plant.take(slice(iw, iw + 1)), gain.K, man, ctl, trace=True).trace
@@ -245,10 +248,7 @@ def time_check_gain(
     for key, metric, unit, _kind in checks:
         if key not in req:
             continue
-        if metric is None:
-            groups = all_metrics.get("speed_settling_time_s", []) + all_metrics.get("yaw_rate_settling_time_s", [])
-        else:
-            groups = all_metrics.get(metric, [])
+        groups = all_metrics.get(metric or "settling_time_s", [])
         if not groups:
             continue
         v = np.concatenate(groups)

@@ -47,21 +47,21 @@ NO_FALL = "no_fall_in_any_manoeuvre"
 
 # plain words for every requirement key (the README's glossary uses the same)
 LABELS = {
-    STABILITY: "closed loop stable (every model)",
+    STABILITY: "closed-loop stability",
     NO_FALL: "no fall in any manoeuvre",
     "min_decay_rate_per_s": "slowest decay rate",
     "min_damping_ratio": "smallest damping ratio",
     "max_natural_frequency_rad_s": "largest natural frequency",
-    "min_gain_margin_db": "gain margin at each wheel",
-    "min_phase_margin_deg": "phase margin at each wheel",
-    "min_delay_margin_ms": "delay margin at each wheel",
-    "min_disk_margin": "disk margin at each wheel",
-    "min_multiloop_disk_margin": "disk margin, both wheels at once",
+    "min_gain_margin_db": "gain margin",
+    "min_phase_margin_deg": "phase margin",
+    "min_delay_margin_ms": "delay margin",
+    "min_disk_margin": "disk margin, one wheel",
+    "min_multiloop_disk_margin": "disk margin, both wheels",
     "max_wheel_torque_n_m": "peak wheel torque",
     "max_pitch_deg": "peak pitch",
     "max_settling_time_s": "settling time",
-    "min_speed_step_within_limits_m_s": "largest speed step within drive limits",
-    "min_yaw_rate_step_within_limits_rad_s": "largest yaw-rate step within drive limits",
+    "min_speed_step_within_limits_m_s": "speed step within limits",
+    "min_yaw_rate_step_within_limits_rad_s": "yaw-rate step within limits",
 }
 
 
@@ -180,7 +180,8 @@ def overall_verdict(
                     worst=worst_v.worst,
                     margin=worst_v.margin,
                     unit=worst_v.unit,
-                    failing=f"{fails} of {worst_v.samples} samples",
+                    failing=f"{fails} of {worst_v.samples} samples"
+                    + ("; fails at a corner or in the search" if not passed and fails == 0 else ""),
                 )
             )
     keys_time = [NO_FALL, *(k for k in TIME_KEYS if k in case.requirements)]

@@ -127,215 +127,427 @@ def model_text(f: ModelFacts) -> str:
     return "\n".join(out) + "\n"
 
 
-def _loc(at: dict[str, float]) -> str:
-    return ", ".join(f"{k}={fmt(v, 4)}" for k, v in at.items()) or "nominal"
+WIDTH = 100  # every screen fits this many columns
+
+METRIC_LABELS = {
+    "decay_rate": "slowest decay rate",
+    "damping": "smallest damping ratio",
+    "natural_frequency": "largest natural frequency",
+    "gain_margin_up": "gain margin, increase",
+    "gain_margin_down": "gain margin, reduction",
+    "phase_margin": "phase margin",
+    "delay_margin": "delay margin",
+    "disk_margin": "disk margin, one wheel",
+    "multiloop_disk_margin": "disk margin, both wheels",
+    "peak_torque_n_m": "peak wheel torque",
+    "peak_current_a": "peak motor current",
+    "current_limit_fraction": "share of time at current limit",
+    "voltage_limit_fraction": "share of time at voltage limit",
+    "peak_pitch_deg": "peak pitch",
+    "peak_pitch_rate_deg_s": "peak pitch rate",
+    "speed_settling_time_s": "speed settling time",
+    "speed_rise_time_s": "speed rise time",
+    "speed_overshoot": "speed overshoot",
+    "speed_final_error_m_s": "speed final error",
+    "yaw_rate_settling_time_s": "yaw-rate settling time",
+    "yaw_rate_rise_time_s": "yaw-rate rise time",
+    "yaw_rate_overshoot": "yaw-rate overshoot",
+    "yaw_rate_final_error_rad_s": "yaw-rate final error",
+}
+MARGIN_LABELS = {
+    "gain_margin_up_db": ("gain margin, increase", "dB"),
+    "gain_margin_down_db": ("gain margin, reduction", "dB"),
+    "phase_margin_deg": ("phase margin", "deg"),
+    "delay_margin_ms": ("delay margin", "ms"),
+    "disk_margin": ("disk margin", "-"),
+    "disk_gain_high_db": ("disk margin as gain", "dB"),
+    "disk_phase_deg": ("disk margin as phase", "deg"),
+}
+CAUTION_LINE = (
+    "Caution: a model analysis, not a safety case; validate on hardware with the vehicle restrained "
+    "(README, Safety cautions)."
+)
+
+
+def value_text(x: float, *, metric: str = "") -> str:
+    """A value for a screen: infinities in words (never 'inf')."""
+    x = float(x)
+    if math.isinf(x):
+        if "settling" in metric or "rise" in metric:
+            return "not settled" if "settling" in metric else "not reached"
+        return "unbounded" if x > 0 else "-unbounded"
+    return fmt(x)
+
+
+def parameter_label(name: str) -> str:
+    """A parameter's plain name with its unit: ``rider or cargo mass [kg]``."""
+    from robust.vehicle import PARAMETERS
+
+    info = PARAMETERS.get(name)
+    return name if info is None else f"{info.text} [{info.unit}]"
+
+
+def _wrap(text: str, indent: str = "  ") -> list[str]:
+    import textwrap
+
+    return textwrap.wrap(text, WIDTH, initial_indent=indent, subsequent_indent=indent + "  ") or [indent]
+
+
+def locations_text(names: Sequence[str], rows: Sequence[tuple[str, str, dict[str, float]]]) -> list[str]:
+    """Where worst cases lie: one column per ranged parameter (``p1``...), with a legend below."""
+    if not names:
+        return ["  every value is at the nominal vehicle (no ranges)"]
+    out = []
+    for start in range(0, len(names), 6):
+        part = list(names)[start : start + 6]
+        heads = [f"p{start + i + 1}" for i in range(len(part))]
+        body = [[label, source, *(fmt(at[n], 4) for n in part)] for label, source, at in rows]
+        out.append(table(["metric", "found by", *heads], body))
+    lines = [ln for block in out for ln in block.split("\n")]
+    for i, n in enumerate(names):
+        lines += _wrap(f"p{i + 1} = {parameter_label(n)}")
+    return lines
+
+
+def gain_matrix_text(K: np.ndarray) -> str:
+    """The 2 x 4 gain as a table with units."""
+    units = ("N m s/m", "N m s/rad", "N m/rad", "N m s/rad")
+    names = ("speed", "yaw rate", "pitch", "pitch rate")
+    heads = [f"{s} [{u}]" for s, u in zip(names, units)]
+    return table(["wheel", *heads], [[w, *(fmt(v, 5) for v in row)] for w, row in zip(("left", "right"), K)])
+
+
+def _failing_text(v) -> str:
+    return f"{v.failures} of {v.samples}"
+
+
+def _pfail_text(v) -> str:
+    return "-" if v.failure_interval is None else f"<= {_pct(v.failure_interval[1])}"
 
 
 def _pct(x: float) -> str:
     return f"{100 * x:.3g}%"
 
 
-def gain_matrix_text(K: np.ndarray) -> str:
-    """The 2 x 4 gain as a table with units."""
-    units = ("N m s/m", "N m s/rad", "N m/rad", "N m s/rad")
-    heads = [f"{s} [{u}]" for s, u in zip(REDUCED_STATES, units)]
-    return table(["wheel", *heads], [[w, *(fmt(v, 5) for v in row)] for w, row in zip(("left", "right"), K)])
+def linear_block(g, result) -> list[str]:
+    """One gain set's linear check: worst cases, where they are, margins per wheel, requirements."""
+    from robust.verdict import LABELS
 
-
-def check_text(result) -> str:
-    """The check command's report: one block per gain set."""
     st = result.study
-    out = [
-        f"Robustness check: {result.title}",
-        f"case SHA-256 {result.case_sha256}",
-        f"plan {st.plan}, {result.samples} samples, seed {st.seed}, confidence {st.confidence:g}; "
-        f"worst-case search {'on' if st.search else 'off'}",
-        f"(zero failures in {result.samples_for_1pct_at_confidence} Monte Carlo samples shows P(fail) < 1% "
-        f"at {st.confidence:g} confidence; Tempo, Bai and Dabbene 1997)",
-    ]
-    for g in result.gains:
-        out += ["", "=" * 78, f"Gain set '{g.gain.name}' ({g.gain.origin}): {'PASS' if g.passed else 'FAIL'}"]
-        out.append(gain_matrix_text(g.gain.K))
-        out += ["", "Worst case over the box (* marks the worst of corner / sample / search)"]
-        rows = []
-        for s in g.summaries:
-            cells = []
-            for w in (s.worst_corner, s.worst_sample, s.worst_search):
-                if w is None:
-                    cells.append("-")
-                else:
-                    star = "*" if w is s.worst else " "
-                    cells.append(fmt(w.value) + star)
-            pct = s.percentiles
-            spread = f"{fmt(pct['p5'])} / {fmt(pct['p50'])} / {fmt(pct['p95'])}" if pct else "-"
-            rows.append([s.name, s.unit, fmt(s.nominal), *cells, spread])
-        out.append(table(["metric", "unit", "nominal", "corner", "sample", "search", "p5 / p50 / p95"], rows))
+    out = ["", "Worst case over the box (* marks the worst of corner / sample / search)"]
+    rows = []
+    for s in g.summaries:
+        cells = []
+        for w in (s.worst_corner, s.worst_sample, s.worst_search):
+            cells.append("-" if w is None else value_text(w.value) + ("*" if w is s.worst else " "))
+        rows.append([METRIC_LABELS.get(s.name, s.name), s.unit, value_text(s.nominal), *cells])
+    out.append(table(["metric", "unit", "nominal", "corner", "sample", "search"], rows))
+    if any(s.percentiles for s in g.summaries):
+        out += ["", "Spread over the samples (percentiles)"]
+        rows = [
+            [METRIC_LABELS.get(s.name, s.name), s.unit, *(value_text(s.percentiles[q]) for q in ("p5", "p50", "p95"))]
+            for s in g.summaries
+            if s.percentiles
+        ]
+        out.append(table(["metric", "unit", "5%", "median", "95%"], rows))
+    varying = [(METRIC_LABELS.get(s.name, s.name), s.worst.source, s.worst.at) for s in g.summaries if s.varies]
+    same = [METRIC_LABELS.get(s.name, s.name) for s in g.summaries if not s.varies]
+    if varying:
         out += ["", "Where the worst cases are"]
-        out.append(
-            table(
-                ["metric", "found by", "location"],
-                [[s.name, s.worst.source, _loc(s.worst.at)] for s in g.summaries],
-            )
+        out += locations_text(result.parameter_names, varying)
+    if same:
+        out += _wrap("the same everywhere in the box (no location): " + ", ".join(same))
+    out += ["", "Loop-at-a-time margins per wheel input (nominal | worst over corners and samples)"]
+    keys = list(g.inputs[0].nominal)
+    rows = [
+        [
+            MARGIN_LABELS[k][0],
+            MARGIN_LABELS[k][1],
+            *(f"{value_text(i.nominal[k])} | {value_text(i.worst[k])}" for i in g.inputs),
+        ]
+        for k in keys
+    ]
+    out.append(table(["margin", "unit", *(f"{i.wheel} wheel" for i in g.inputs)], rows))
+    what = {"corners": "corners", "grid": "grid points"}.get(st.plan, "samples")
+    out += ["", f"Linear requirements (margin < 0 fails; failing {what}; for Monte Carlo the upper bound of"]
+    out += [f"  the failure probability at {st.confidence:g} confidence, Clopper-Pearson)"]
+    rows = []
+    for v in g.verdicts:
+        label = LABELS.get(v.requirement, v.requirement)
+        if v.requirement == "min_gain_margin_db":
+            label = "gain margin up" if v.metric == "gain_margin_up" else "gain margin down"
+        rows.append(
+            [
+                label,
+                ("> 0" if v.requirement == "closed_loop_stable" else fmt(v.threshold)) + f" {v.unit}",
+                value_text(v.worst),
+                value_text(v.margin),
+                "pass" if v.passed else "FAIL",
+                _failing_text(v),
+                _pfail_text(v),
+            ]
         )
-        out += ["", "Loop-at-a-time margins per wheel input (nominal | worst over corners and samples)"]
-        keys = list(g.inputs[0].nominal)
-        rows = [[k, *(f"{fmt(i.nominal[k])} | {fmt(i.worst[k])}" for i in g.inputs)] for k in keys]
-        out.append(table(["margin", *(f"{i.wheel} wheel" for i in g.inputs)], rows))
-        if g.verdicts:
-            out += ["", "Requirements"]
-            rows = []
-            for v in g.verdicts:
-                if v.failure_interval:
-                    lo, hi = v.failure_interval
-                    interval = f"{_pct(v.failure_fraction)} [{_pct(lo)}, {_pct(hi)}]"
-                else:
-                    interval = f"{_pct(v.failure_fraction)} of samples"
-                rows.append(
-                    [
-                        v.requirement,
-                        v.metric,
-                        fmt(v.threshold),
-                        fmt(v.worst),
-                        fmt(v.margin),
-                        "pass" if v.passed else "FAIL",
-                        interval,
-                    ]
-                )
-            out.append(
-                table(
-                    ["requirement", "metric", "bound", "worst", "margin", "verdict", "P(fail) [interval]"],
-                    rows,
-                )
+    out.append(table(["requirement", "bound", "worst", "margin", "verdict", f"failing {what}", "P(fail)"], rows))
+    return out
+
+
+def time_block(tg, result) -> list[str]:
+    """One gain set's time-domain check: manoeuvres, largest steps, requirements."""
+    names = result.parameter_names
+    out = []
+    for m in tg.manoeuvres:
+        fall = f"{m.fell} of {m.models} models fell (first at {fmt(m.first_fall_s)} s)" if m.fell else "none fell"
+        out += ["", f"Manoeuvre '{m.name}' ({m.kind.replace('_', ' ')}): {fall}"]
+        rows = [
+            [
+                METRIC_LABELS.get(w.name, w.name),
+                w.unit,
+                value_text(w.median, metric=w.name),
+                value_text(w.value, metric=w.name),
+            ]
+            for w in m.worst
+        ]
+        out.append(table(["metric", "unit", "median", "worst"], rows))
+    if tg.largest_steps:
+        out += ["", "Largest command step each model handles (smallest over the models; median)"]
+        rows = []
+        for s in tg.largest_steps:
+            what = "speed step" if s.kind == "speed_step" else "yaw-rate step"
+            rows.append(
+                [
+                    what,
+                    s.unit,
+                    f"{fmt(s.worst)} ({fmt(float(np.median(s.within_limits)))})",
+                    f"{fmt(s.worst_without_fall)} ({fmt(float(np.median(s.without_fall)))})",
+                ]
             )
-        else:
-            out += ["", "No requirements in the case file: nothing to pass or fail."]
-    verdict = "every requirement holds" if result.passed else "at least one requirement fails"
-    out += ["", f"Overall: {verdict} for the gain sets checked."]
-    return "\n".join(out) + "\n"
+        out.append(table(["step", "unit", "within drive limits", "without a fall"], rows))
+        out += _wrap(
+            "within drive limits: no fall and the current limit never reached; without a fall: the current "
+            "limit may be reached."
+        )
+        locs = [("worst step within limits", s.kind.replace("_", " "), s.worst_at) for s in tg.largest_steps]
+        if names:
+            out += locations_text(names, locs)
+    out += ["", "Time-domain requirements (margin < 0 fails)"]
+    out.append(
+        table(
+            ["requirement", "bound", "worst", "unit", "margin", "verdict", "failing"],
+            [time_verdict_row(v) for v in tg.verdicts],
+        )
+    )
+    return out
 
 
 def time_verdict_row(v) -> list[str]:
     """One time-domain verdict as table cells."""
+    from robust.verdict import LABELS, NO_FALL
+
     verdict = "pass" if v.passed else "FAIL"
+    if v.requirement == NO_FALL:
+        return [
+            LABELS[NO_FALL],
+            "0 falls",
+            f"{int(v.worst)} falls",
+            "runs",
+            "-",
+            verdict,
+            f"{v.failures} of {v.models} runs",
+        ]
     return [
-        v.requirement,
+        LABELS.get(v.requirement, v.requirement),
         fmt(v.threshold),
-        fmt(v.worst),
+        value_text(v.worst, metric=v.requirement),
         v.unit,
-        fmt(v.margin),
+        value_text(v.margin),
         verdict,
-        f"{v.failures} of {v.models}",
+        f"{v.failures} of {v.models} runs",
     ]
 
 
-def time_text(result) -> str:
-    """The simulate command's report."""
-    st = result.study
-    out = [
-        f"Time-domain check: {result.title}",
-        f"case SHA-256 {result.case_sha256}",
-        f"{result.models} models (corners + {st.simulation_samples} Monte Carlo samples, seed {st.seed}); "
-        f"controller {1 / result.sample_period_s:.4g} Hz, latency {result.latency_s * 1e3:.3g} ms, "
-        f"fall beyond {result.fall_angle_deg:.3g} deg",
-    ]
-    for g in result.gains:
-        out += ["", "=" * 78, f"Gain set '{g.gain.name}' ({g.gain.origin}): {'PASS' if g.passed else 'FAIL'}"]
-        for m in g.manoeuvres:
-            fall = f"{m.fell} of {m.models} fell (first at {fmt(m.first_fall_s)} s)" if m.fell else "none fell"
-            out += ["", f"Manoeuvre '{m.name}' ({m.kind}): {fall}"]
-            rows = [[w.name, w.unit, fmt(w.median), fmt(w.value), _loc(w.at)] for w in m.worst]
-            out.append(table(["metric", "unit", "median", "worst", "worst at"], rows))
-        out += ["", "Survivable steps (no fall, current limit never reached)"]
-        rows = []
-        for s in g.survivable:
-            rows.append([s.kind, s.unit, fmt(float(np.median(s.survived))), fmt(s.worst), _loc(s.worst_at)])
-        out.append(table(["step", "unit", "median", "worst", "worst at"], rows))
-        if g.verdicts:
-            out += ["", "Requirements"]
-            rows = [time_verdict_row(v) for v in g.verdicts]
-            out.append(table(["requirement", "bound", "worst", "unit", "margin", "verdict", "failing runs"], rows))
-    verdict = "every requirement holds" if result.passed else "at least one requirement fails"
-    out += ["", f"Overall: {verdict} for the gain sets simulated."]
+def verdict_block(v) -> list[str]:
+    """The overall verdict of one gain set, with what it covered and what it did not."""
+    out = ["", f"Overall verdict for '{v.gain}': {v.status}"]
+    rows = []
+    for o in v.outcomes:
+        if o.status == "not evaluated":
+            rows.append([o.label, o.domain, "not evaluated", "-", o.why[:30]])
+        else:
+            rows.append([o.label, o.domain, o.status if o.status == "pass" else "FAIL", o.evidence, o.failing])
+    out.append(table(["requirement", "check", "outcome", "evidence", "failing"], rows))
+    for c in v.covered:
+        out += _wrap("covered: " + c)
+    if v.not_evaluated:
+        out += _wrap("not evaluated: " + ", ".join(v.not_evaluated) + " (so the verdict cannot be PASS)")
+    return out
+
+
+def _header(case, a) -> list[str]:
+    out = [f"Robustness check: {case.title}", f"case SHA-256 {case.sha256}"]
+    if a.check is not None:
+        st = a.check.study
+        out += _wrap(
+            f"linear check: plan {st.plan.replace('_', ' ')}, {a.check.samples} samples plus "
+            f"{2 ** len(a.check.parameter_names)} corners, seed {st.seed}, confidence {st.confidence:g}, "
+            f"worst-case search {'on' if st.search else 'off'}",
+            "",
+        )
+    if a.time is not None:
+        t = a.time
+        out += _wrap(
+            f"time domain: {t.models} models (corners + {t.study.simulation_samples} Monte Carlo samples), "
+            f"{len(case.manoeuvres)} manoeuvres, controller {1 / t.sample_period_s:.4g} Hz, latency "
+            f"{t.latency_s * 1e3:.3g} ms, fall beyond {t.fall_angle_deg:.3g} deg",
+            "",
+        )
+    if case.default_manoeuvres:
+        out += _wrap(
+            "the case has no [manoeuvres]: the default manoeuvres were simulated ("
+            + ", ".join(m.name for m in case.manoeuvres)
+            + ")",
+            "",
+        )
+    return out
+
+
+def assessment_text(case, a, *, view: str = "linear") -> str:
+    """The check / simulate screen: per gain set its details (``view``: linear, time or compare), then verdicts."""
+    out = _header(case, a)
+    if view == "compare" and a.check is not None:
+        out += ["", compare_text(a.check).rstrip()]
+    else:
+        for i, v in enumerate(a.verdicts):
+            g = a.check.gains[i] if a.check is not None else a.time.gains[i]
+            out += ["", "=" * 78, f"Gain set '{g.gain.name}' ({g.gain.origin}): {v.status}", gain_matrix_text(g.gain.K)]
+            if view in ("linear",) and a.check is not None:
+                out += linear_block(a.check.gains[i], a.check)
+            if view == "time" and a.time is not None:
+                out += time_block(a.time.gains[i], a.time)
+    out += ["", "=" * 78]
+    for v in a.verdicts:
+        out += verdict_block(v)
+    out += summary_lines(a.verdicts)
     return "\n".join(out) + "\n"
+
+
+def summary_lines(verdicts) -> list[str]:
+    """The overall verdict of every gain set, one line each, and the caution when one passes."""
+    out = ["", "Overall verdicts"]
+    for v in verdicts:
+        out += _wrap(v.line())
+    if any(v.passed for v in verdicts):
+        out += ["", *_wrap(CAUTION_LINE, "")]
+    return out
 
 
 def compare_text(result) -> str:
     """Gain sets side by side: one column per gain set, rows = metrics (worst case over the box)."""
+    from robust.verdict import LABELS
+
     names = [g.gain.name for g in result.gains]
     rows = []
     first = result.gains[0]
     for k, s in enumerate(first.summaries):
-        cells = []
         values = [g.summaries[k].worst.value for g in result.gains]
-        best = max(values) if s.kind == "min" else min(values)
         worst = min(values) if s.kind == "min" else max(values)
-        for v in values:
-            mark = (
-                " (worst)"
-                if v == worst and len(set(values)) > 1
-                else ("  (best)" if v == best and len(set(values)) > 1 else "")
-            )
-            cells.append(fmt(v) + mark)
-        rows.append([f"{s.name} [{s.unit}]", *cells])
-    by_req: dict[str, list[str]] = {}
-    for g in result.gains:
-        for v in g.verdicts:
-            key = f"{v.requirement} ({v.metric})"
-            by_req.setdefault(key, [])
-    for key in by_req:
-        for g in result.gains:
-            v = next((v for v in g.verdicts if f"{v.requirement} ({v.metric})" == key), None)
-            if v is None:
-                by_req[key].append("-")
-                continue
-            pf = f", P(fail) <= {_pct(v.failure_interval[1])}" if v.failure_interval else ""
-            by_req[key].append(("pass" if v.passed else "FAIL") + f" ({fmt(v.margin, 3)}{pf})")
-    out = ["Worst case over the box, side by side ('worst'/'best' mark the extremes across gain sets)"]
+        cells = [value_text(v) + (" (worst)" if v == worst and len(set(values)) > 1 else "") for v in values]
+        rows.append([f"{METRIC_LABELS.get(s.name, s.name)} [{s.unit}]", *cells])
+    out = ["Worst case over the box, side by side ('worst' marks the worst gain set)"]
     out.append(table(["metric", *names], rows))
-    if by_req:
-        out += ["", "Verdicts (margin; upper confidence bound of the failure probability)"]
-        out.append(table(["requirement", *names], [[k, *v] for k, v in by_req.items()]))
-        out.append(table(["overall", *("PASS" if g.passed else "FAIL" for g in result.gains)], []))
+    keys = list(dict.fromkeys((v.requirement, v.metric) for g in result.gains for v in g.verdicts))
+    vrows = []
+    for req, metric in keys:
+        label = LABELS.get(req, req) + (
+            (", up" if metric == "gain_margin_up" else ", down") if req == "min_gain_margin_db" else ""
+        )
+        cells = []
+        for g in result.gains:
+            v = next((v for v in g.verdicts if (v.requirement, v.metric) == (req, metric)), None)
+            cells.append("-" if v is None else ("pass" if v.passed else "FAIL") + f" ({value_text(v.margin)})")
+        vrows.append([label, *cells])
+    out += ["", "Linear verdicts (margin in brackets; negative fails)"]
+    out.append(table(["requirement", *names], vrows))
     return "\n".join(out) + "\n"
 
 
-def design_text(d) -> str:
+def dossier_text(data, folder) -> str:
+    """The dossier command's screen: the side-by-side comparison and every overall verdict."""
+    out = [compare_text(data.check).rstrip()]
+    if data.design_error:
+        out += ["", *_wrap(f"Synthesis: {data.design_error}", "")]
+    for v in data.verdicts:
+        out += verdict_block(v)
+    out += summary_lines(data.verdicts)
+    out += [
+        "",
+        *_wrap(
+            f"Dossier written to {folder}/ (dossier.html, dossier.pdf, dossier.md, results.json, "
+            "tables/*.csv, figures/*.svg)",
+            "",
+        ),
+    ]
+    return "\n".join(out) + "\n"
+
+
+def _fact_text(k: str, v) -> str:
+    if isinstance(v, bool):
+        return "yes" if v else "no"
+    if isinstance(v, float):
+        return fmt(v)
+    if isinstance(v, (list, tuple)):
+        return ", ".join(_fact_text("", x) for x in v)
+    return str(v)
+
+
+def design_text(case, d) -> str:
     """The synthesize command's report."""
+    from robust.synthesis.lmi import explain_status
+
     p, r, g = d.polytope, d.synthesis, d.gain
     cert = r.certificate
-    out = [f"LMI synthesis: {d.check.title}", ""]
-    out.append(f"Polytope: route {p.route}, {p.vertices} vertices")
-    out.append(f"  guarantee: {p.guarantee}")
+    out = [f"LMI synthesis: {case.title}", ""]
+    out.append(f"Polytope: route {p.route.replace('_', ' ')}, {p.vertices} vertices")
+    out += _wrap(f"guarantee: {p.guarantee}")
     for k, v in p.facts.items():
         if isinstance(v, dict):
             continue
-        out.append(f"  {k}: {v if not isinstance(v, float) else fmt(v)}")
+        out += _wrap(f"{k.replace('_', ' ')}: {_fact_text(k, v)}")
     if "moment_intervals" in p.facts:
         mi = p.facts["moment_intervals"]
         units = p.facts.get("moment_units", {})
         out.append(
             table(
                 ["moment", "low", "high", "unit"],
-                [[k, fmt(a), fmt(b), units.get(k, "")] for k, (a, b) in mi.items()],
+                [[k.replace("_", " "), fmt(a), fmt(b), units.get(k, "")] for k, (a, b) in mi.items()],
             )
         )
     s = r.spec
-    out += [
-        "",
-        f"Request: objective {s.objective}, {s.lyapunov} Lyapunov matrix, decay rate >= {fmt(s.decay_rate)} 1/s"
+    out += [""] + _wrap(
+        f"Request: objective {s.objective}, {s.lyapunov.replace('_', '-')} Lyapunov matrix, decay rate >= "
+        f"{fmt(s.decay_rate)} 1/s"
         + (f", damping >= {fmt(s.damping)}" if s.damping is not None else "")
         + (f", natural frequency <= {fmt(s.max_frequency)} rad/s" if s.max_frequency is not None else "")
         + (f", wheel torque <= {fmt(s.torque_limit)} N m" if s.torque_limit is not None else ""),
-    ]
-    out.append(
-        f"Result: certified decay rate {fmt(r.decay_rate)} 1/s; solver {r.solver} ({r.status}); {r.solve_count} solves"
-        + (f"; slack parameter eps = {fmt(r.epsilon)}" if r.epsilon is not None else "")
+        "",
     )
-    out.append(
+    for key, why in d.not_imposed.items():
+        out += _wrap(f"requested but NOT imposed by the LMIs: {key} ({why}); checked on samples only", "")
+    out += _wrap(
+        f"Result: certified decay rate {fmt(r.decay_rate)} 1/s; solver {r.solver}: {explain_status(r.status)}; "
+        f"{r.solve_count} solves" + (f"; slack parameter eps = {fmt(r.epsilon)}" if r.epsilon is not None else ""),
+        "",
+    )
+    out += _wrap(
         f"Certificate (re-checked with numpy at every vertex): largest LMI eigenvalue {cert.smallest_slack:.3e} "
         f"(must be < -{cert.tolerance:.1e}), smallest Lyapunov eigenvalue {cert.smallest_x_eig:.3e}: "
-        + ("VALID" if cert.passed else "NOT VALID")
+        + ("VALID" if cert.passed else "NOT VALID"),
+        "",
     )
     out += ["", f"Gain '{g.name}':", gain_matrix_text(g.K), ""]
-    out.append(compare_text(d.check))
-    return "\n".join(out)
+    a = d.assessment
+    if a is not None:
+        out.append(compare_text(a.check).rstrip())
+        for v in a.verdicts:
+            out += verdict_block(v)
+        out += summary_lines(a.verdicts)
+    return "\n".join(out) + "\n"
