@@ -324,6 +324,11 @@ def check_physical(values: Mapping[str, np.ndarray], *, where: str = "") -> None
         arr = np.atleast_1d(np.asarray(value, dtype=float))
         if not np.all(np.isfinite(arr)):
             raise ValueError(f"{where}{name}: expected a finite number [{info.unit}], got {value!r}")
+        if info.sign != "any":
+            bad = arr < 0 if info.sign == "nonnegative" else arr <= 0
+            if np.any(bad):
+                want = ">= 0" if info.sign == "nonnegative" else "> 0"
+                raise ValueError(f"{where}{name}: {info.text} must be {want} [{info.unit}], got {arr[bad][0]:g}")
         lo, hi = info.plausible
         out = (arr < lo) | (arr > hi)
         if np.any(out):
@@ -331,12 +336,6 @@ def check_physical(values: Mapping[str, np.ndarray], *, where: str = "") -> None
                 f"{where}{name}: {info.text} {arr[out][0]:g} {info.unit} is outside the plausible range "
                 f"{lo:g} to {hi:g} {info.unit} (check the unit)"
             )
-        if info.sign == "any":
-            continue
-        bad = arr < 0 if info.sign == "nonnegative" else arr <= 0
-        if np.any(bad):
-            want = ">= 0" if info.sign == "nonnegative" else "> 0"
-            raise ValueError(f"{where}{name}: {info.text} must be {want} [{info.unit}], got {arr[bad][0]:g}")
     for group in ("chassis", "payload"):
         keys = [f"{group}.{ax}_inertia_kg_m2" for ax in ("roll", "pitch", "yaw")]
         if all(k in values for k in keys):

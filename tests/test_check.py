@@ -19,8 +19,19 @@ def transporter_json():
 
     buf = io.StringIO()
     with contextlib.redirect_stdout(buf):
-        code = main(["check", str(CASES / "stand_up_transporter.toml"), "--json", "--samples", "600", "--quiet"])
-    return code, json.loads(buf.getvalue())
+        code = main(
+            [
+                "check",
+                str(CASES / "stand_up_transporter.toml"),
+                "--json",
+                "--samples",
+                "600",
+                "--quiet",
+                "--linear-only",
+            ]
+        )
+    full = json.loads(buf.getvalue())
+    return code, full["check"] | {"overall": full["verdicts"], "time": full["time"]}
 
 
 def test_check_runs_two_gain_sets_and_exit_code_follows_verdicts(transporter_json):
@@ -28,8 +39,12 @@ def test_check_runs_two_gain_sets_and_exit_code_follows_verdicts(transporter_jso
     names = [g["gain"]["name"] for g in data["gains"]]
     assert names == ["placed", "lqr"]
     assert data["samples"] == 600
-    assert code == (0 if data["passed"] else 1)
     assert data["passed"] == all(v["passed"] for g in data["gains"] for v in g["verdicts"])
+    # --linear-only leaves the time domain out: never a PASS, so exit 1 whatever the linear verdicts
+    assert data["time"] is None and code == 1
+    assert {v["status"] for v in data["overall"]} <= {"FAIL", "INCOMPLETE"}
+    for v in data["overall"]:
+        assert "no_fall_in_any_manoeuvre" in v["not_evaluated"]
 
 
 def test_search_is_at_least_as_bad_as_corners_and_samples(transporter_json):
@@ -59,13 +74,15 @@ def test_verdict_margin_and_interval_consistent(transporter_json):
 
 
 def test_check_text_and_unknown_gain(capsys):
-    code = main(["check", str(CASES / "delivery_cart.toml"), "--samples", "200", "--no-search", "--quiet"])
+    base = ["check", str(CASES / "delivery_cart.toml"), "--samples", "200", "--no-search", "--quiet", "--linear-only"]
+    code = main(base)
     out = capsys.readouterr().out
-    assert code in (0, 1)
-    assert "Gain set 'placed'" in out and "Gain set 'lqr'" in out and "Requirements" in out
-    code = main(["check", str(CASES / "delivery_cart.toml"), "--samples", "200", "--no-search", "--quiet", "--compare"])
+    assert code == 1
+    assert "Gain set 'placed'" in out and "Gain set 'lqr'" in out and "Linear requirements" in out
+    assert "Overall verdict for 'placed'" in out
+    code = main([*base, "--compare"])
     out = capsys.readouterr().out
-    assert "side by side" in out and "placed" in out and "lqr" in out and "overall" in out
+    assert "side by side" in out and "placed" in out and "lqr" in out and "Overall verdicts" in out
     assert main(["check", str(CASES / "delivery_cart.toml"), "--gain", "nope"]) == 2
     assert "unknown gain set 'nope'" in capsys.readouterr().err
     assert main(["check", str(CASES / "delivery_cart.toml"), "--samples", "0"]) == 2
@@ -90,10 +107,11 @@ def test_check_reads_gain_file(tmp_path, capsys):
             "--no-search",
             "--quiet",
             "--json",
+            "--linear-only",
         ]
     )
-    data = json.loads(capsys.readouterr().out)
-    assert code in (0, 1)
+    data = json.loads(capsys.readouterr().out)["check"]
+    assert code == 1
     assert len(data["gains"]) == 1
     np.testing.assert_allclose(np.array(data["gains"][0]["gain"]["K"]), g.K, rtol=1e-15)
 
@@ -106,6 +124,7 @@ def test_same_seed_same_numbers(capsys):
         "300",
         "--quiet",
         "--json",
+        "--linear-only",
         "--seed",
         "5",
     ]

@@ -24,15 +24,32 @@ def test_gain_file_round_trip(tmp_path):
     assert [p.name for p in path.parent.iterdir()] == ["g.toml"]  # no temporary left behind
 
 
+_H = "states=['speed','yaw_rate','pitch','pitch_rate']\ninputs=['torque_left','torque_right']\norigin='test'\n"
+
+
 @pytest.mark.parametrize(
     ("text", "msg"),
     [
-        ("[gain]\nname='x'\n", "missing key 'gain.matrix'"),
-        ("[gain]\nname='x'\nmatrix=[[1,2,3],[4,5,6]]\n", "expected 2 rows of 4 numbers"),
+        ("[gain]\nname='x'\n", "missing key 'gain.origin'"),
+        (f"[gain]\nname='x'\n{_H}", "missing key 'gain.matrix'"),
+        ("[gain]\nname='x'\nmatrix=[[1,2,3,4],[4,5,6,7]]\n", "missing key 'gain.origin'"),
+        (f"[gain]\nname='x'\n{_H}matrix=[[1,2,3],[4,5,6]]\n", "expected 2 rows of 4 finite numbers"),
         (
-            "[gain]\nname='x'\nmatrix=[[1,2,3,4],[4,5,6,7]]\nstates=['a','b','c','d']\n",
+            "[gain]\nname='x'\norigin='t'\ninputs=['torque_left','torque_right']\n"
+            "matrix=[[1,2,3,4],[4,5,6,7]]\nstates=['a','b','c','d']\n",
             "'gain.states' must be",
         ),
+        (
+            f"[gain]\nname='x'\n{_H}matrix=[[1,2,3,4],[4,5,6,7]]\nprovenance='ab'\n",
+            "'gain.provenance' expected a table",
+        ),
+        (
+            "[gain]\nname='x'\norigin='t'\ninputs=['torque_left','torque_right']\nstates=3\n"
+            "matrix=[[1,2,3,4],[4,5,6,7]]\n",
+            "'gain.states' must be",
+        ),
+        (f"[gain]\nname='../x'\n{_H}matrix=[[1,2,3,4],[4,5,6,7]]\n", "'gain.name': expected 1 to 60 letters"),
+        (f"[gain]\nname=5\n{_H}matrix=[[1,2,3,4],[4,5,6,7]]\n", "'gain.name' expected text"),
         ("[gain]\nname='x'\nmatrix=[[1,2,3,4],[4,5,6,7]]\ncolour=1\n", "unknown key 'gain.colour'"),
         ("[gain\n", "not valid TOML"),
     ],

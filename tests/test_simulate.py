@@ -12,7 +12,7 @@ from scipy.integrate import solve_ivp
 from robust.case import CaseError, parse_case, resolve_gain
 from robust.dynamics import SPEED, derivative, drive_output, energy
 from robust.linear import REDUCED_INDEX, reduced_model
-from robust.simulate import Controller, Manoeuvre, simulate, survivable_step
+from robust.simulate import Controller, Manoeuvre, largest_step, simulate
 from robust.uncertainty import corners
 from robust.vehicle import plant_batch
 
@@ -169,11 +169,11 @@ def test_large_step_falls_and_survivable_step_is_found(setup):
     ctl = case.controller
     man = Manoeuvre("probe", "speed_step", 3.0, start_s=0.1, speed_m_s=1.0)
     no_load = case.vehicle.drive.supply_v / case.vehicle.drive.back_emf_v_s_per_rad * case.vehicle.wheel.radius_m
-    s = survivable_step(plant, K, man, ctl, upper=no_load, rounds=3)
-    assert np.all(s["survived"] > 0.5) and np.all(s["survived"] < s["failed"])
+    s = largest_step(plant, K, man, ctl, upper=no_load, rounds=3)
+    assert np.all(s["handled"] > 0.5) and np.all(s["handled"] < s["failed"])
     big = simulate(plant, K, man, ctl, scale=np.full(plant.n, 0.95 * no_load))
     assert big.fell[2]  # the heavy rider falls; light riders may survive by leaning far back
-    ok = simulate(plant, K, man, ctl, scale=s["survived"])
+    ok = simulate(plant, K, man, ctl, scale=s["handled"])
     assert not ok.fell.any() and ok.metrics["current_limit_fraction"].max() == 0
     bad = simulate(plant, K, man, ctl, scale=s["failed"])
     assert np.all(bad.fell | (bad.metrics["current_limit_fraction"].max(axis=1) > 0))

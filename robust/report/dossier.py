@@ -227,6 +227,7 @@ def _blocks(d, today: str) -> tuple[list, list[Figure]]:
             )
         )
     # comparison
+    stems_all = file_stems(g.gain.name for g in chk.gains)
     B.append(_h(2, "Gain sets side by side"))
     names = [g.gain.name for g in chk.gains]
     rows = []
@@ -253,10 +254,7 @@ def _blocks(d, today: str) -> tuple[list, list[Figure]]:
                 v = next((v for v in g.verdicts if v.requirement == key), None)
                 cells.append("-" if v is None else ("pass" if v.passed else "FAIL") + f" ({fmt(v.margin, 3)})")
             rows.append([f"{key} (time domain)", *cells])
-    overall = []
-    for i, g in enumerate(chk.gains):
-        ok = g.passed and (tm is None or tm.gains[i].passed)
-        overall.append("PASS" if ok else "FAIL")
+    overall = [v.status for v in d.verdicts]
     rows.append(["overall verdict", *overall])
     B.append(
         Table(
@@ -267,6 +265,48 @@ def _blocks(d, today: str) -> tuple[list, list[Figure]]:
             note="'(worst)' marks the worst gain set for each metric.",
         )
     )
+    B.append(_h(2, "Overall verdict of each gain set"))
+    B.append(
+        _p(
+            "One verdict per gain set covers closed-loop stability of every model (always), no fall in any "
+            "manoeuvre (always) and every requirement of the case. Evidence: certified = an LMI certificate "
+            "re-checked in this run on a polytope that provably contains the box; statistical = Monte Carlo "
+            "samples with a Clopper-Pearson bound; sampled = corners, samples and a search, no probability."
+        )
+    )
+    if case.default_manoeuvres:
+        B.append(
+            _p(
+                "The case has no manoeuvres: the default manoeuvres were simulated ("
+                + ", ".join(m.name for m in case.manoeuvres)
+                + ")."
+            )
+        )
+    for v in d.verdicts:
+        B.append(_p(v.line()))
+        B.append(
+            Table(
+                f"Verdict of '{v.gain}': {v.status}",
+                ["requirement", "check", "outcome", "evidence", "bound", "worst", "margin", "failing", "note"],
+                [
+                    [
+                        o.label,
+                        o.domain,
+                        o.status if o.status != "fail" else "FAIL",
+                        o.evidence,
+                        "-" if o.bound is None else fmt(o.bound),
+                        "-" if o.worst is None else fmt(o.worst),
+                        "-" if o.margin is None else fmt(o.margin),
+                        o.failing or "-",
+                        o.why or "-",
+                    ]
+                    for o in v.outcomes
+                ],
+                f"{stems_all[v.gain]}_overall_verdict",
+            )
+        )
+        for c in v.covered:
+            B.append(_p("Covered: " + c + "."))
     # synthesis
     if d.design is not None:
         ds = d.design
@@ -431,20 +471,31 @@ def _blocks(d, today: str) -> tuple[list, list[Figure]]:
                 )
             rows = [
                 [
-                    s.kind,
+                    "speed step" if s.kind == "speed_step" else "yaw-rate step",
                     s.unit,
-                    fmt(float(np.median(s.survived))),
                     fmt(s.worst),
+                    fmt(float(np.median(s.within_limits))),
+                    fmt(s.worst_without_fall),
+                    fmt(float(np.median(s.without_fall))),
                     ", ".join(f"{k}={fmt(v, 4)}" for k, v in s.worst_at.items()),
                 ]
-                for s in tg.survivable
+                for s in tg.largest_steps
             ]
             B.append(
                 Table(
-                    "Survivable command steps (no fall, current limit never reached)",
-                    ["step", "unit", "median", "worst", "worst at"],
+                    "Largest command step each model handles: within drive limits (no fall, current limit never "
+                    "reached) and without a fall",
+                    [
+                        "step",
+                        "unit",
+                        "within limits, worst",
+                        "within limits, median",
+                        "without a fall, worst",
+                        "without a fall, median",
+                        "worst within limits at",
+                    ],
                     rows,
-                    f"{stem}_survivable",
+                    f"{stem}_largest_steps",
                 )
             )
             rows = [time_verdict_row(v) for v in tg.verdicts]
@@ -515,25 +566,34 @@ def figure_plan(d) -> list[tuple[str, str, object]]:
                     )
                 )
             if case.box.ranges:
-                s = tg.survivable[0]
+                s = tg.largest_steps[0]
                 plan.append(
                     (
-                        f"{stem}_survivable",
-                        f"Largest survivable speed step of every simulated model for '{name}'.",
-                        lambda s=s, name=name: F.survivable_map(
-                            case.box.names, s.points, s.survived, s.unit, f"Survivable speed step, '{name}'"
+                        f"{stem}_largest_speed_step",
+                        f"Largest speed step within drive limits of every simulated model for '{name}'.",
+                        lambda s=s, name=name: F.step_map(
+                            case.box.names,
+                            s.points,
+                            s.within_limits,
+                            s.unit,
+                            f"Largest speed step within drive limits, '{name}'",
                         ),
                     )
                 )
     return plan
 
 
+def _md_text(x) -> str:
+    """Text for Markdown: HTML special characters as entities (names and titles are user input)."""
+    return html.escape(str(x), quote=False)
+
+
 def _md_table(t: Table) -> str:
     def esc(x):
-        return str(x).replace("|", "\\|")
+        return _md_text(x).replace("|", "\\|")
 
     lines = [
-        f"**{t.title}**",
+        f"**{_md_text(t.title)}**",
         "",
         "| " + " | ".join(esc(h) for h in t.headers) + " |",
         "|" + "|".join("---" for _ in t.headers) + "|",
@@ -550,11 +610,11 @@ def render_markdown(blocks, figs) -> str:
         if isinstance(b, Table):
             out.append(_md_table(b))
         elif b[0] == "h":
-            out.append("#" * b[1] + " " + b[2] + "\n")
+            out.append("#" * b[1] + " " + _md_text(b[2]) + "\n")
         else:
-            out.append(b[1] + "\n")
+            out.append(_md_text(b[1]) + "\n")
     for f in figs:
-        out.append(f"![{f.caption}](figures/{f.name}.svg)\n\n*{f.caption}*\n")
+        out.append(f"![{_md_text(f.caption)}](figures/{_safe(f.name)}.svg)\n\n*{_md_text(f.caption)}*\n")
     return "\n".join(out)
 
 
@@ -674,6 +734,7 @@ def write_dossier(d, target: FolderTarget, *, today: str) -> dict[str, Path]:
             "time": d.time,
             "synthesis": None if d.design is None else {"polytope": d.design.polytope, "result": d.design.synthesis},
             "synthesis_error": d.design_error,
+            "verdicts": d.verdicts,
         }
         (tmp / "results.json").write_text(dumps(results), encoding="utf-8")
         _pdf_with_figures(blocks, d, tmp / "dossier.pdf")

@@ -17,7 +17,7 @@ from matplotlib.figure import Figure  # noqa: E402
 
 MARKERS = ("o", "s", "^", "D", "v", "P", "X")
 STYLES = ("-", "--", ":", "-.")
-plt.rcParams.update({"svg.hashsalt": "robust", "font.size": 9})
+plt.rcParams.update({"svg.hashsalt": "robust", "font.size": 9, "text.parse_math": False})  # names are text, never math
 
 
 def svg(fig: Figure) -> str:
@@ -144,8 +144,8 @@ def response_envelopes(env, trace, drive_envelope: dict[str, np.ndarray], title:
     return fig
 
 
-def survivable_map(names: tuple[str, ...], points: np.ndarray, survived: np.ndarray, unit: str, title: str) -> Figure:
-    """Survivable step over the first two ranged parameters (marker size and colour both encode it)."""
+def step_map(names: tuple[str, ...], points: np.ndarray, survived: np.ndarray, unit: str, title: str) -> Figure:
+    """Largest handled step over the first two ranged parameters (marker size and colour both encode it)."""
     fig, ax = plt.subplots(figsize=(6.0, 4.2))
     if points.shape[1] >= 2:
         x, y = points[:, 0], points[:, 1]
@@ -163,7 +163,7 @@ def survivable_map(names: tuple[str, ...], points: np.ndarray, survived: np.ndar
         textcoords="offset points",
         arrowprops={"arrowstyle": "->"},
     )
-    fig.colorbar(sc, ax=ax, label=f"largest survivable step [{unit}]")
+    fig.colorbar(sc, ax=ax, label=f"largest step [{unit}]")
     ax.set_xlabel(names[0] if names else "-")
     ax.set_ylabel(ylab)
     ax.set_title(title)
