@@ -54,14 +54,21 @@ def test_safety_stamp_and_self_contained_html(two_runs):
 
 def test_dossier_numbers_equal_check_numbers(two_runs, capsys):
     a, _b, _ = two_runs
-    dossier = json.loads((a / "results.json").read_text())["check"]
+    results = json.loads((a / "results.json").read_text())
+    dossier = results["check"]
     main(["check", str(CASE), "--json", "--quiet"])
-    check = json.loads(capsys.readouterr().out)
+    full = json.loads(capsys.readouterr().out)
+    check = full["check"]
     by_name = {g["gain"]["name"]: g for g in dossier["gains"]}
     for g in check["gains"]:
         d = by_name[g["gain"]["name"]]
         assert d["summaries"] == g["summaries"]
         assert d["verdicts"] == g["verdicts"]
+    # one overall verdict per gain set, the same in the dossier and in the check command
+    overall = {v["gain"]: v for v in results["verdicts"]}
+    for v in full["verdicts"]:
+        assert overall[v["gain"]]["status"] == v["status"]
+        assert overall[v["gain"]]["outcomes"] == v["outcomes"]
 
 
 def test_failed_run_keeps_previous_dossier(two_runs, monkeypatch, tmp_path):
@@ -78,8 +85,7 @@ def test_failed_run_keeps_previous_dossier(two_runs, monkeypatch, tmp_path):
         raise RuntimeError("disk full (simulated)")
 
     monkeypatch.setattr(rd, "render_pdf", boom)
-    with pytest.raises(RuntimeError):
-        main(["dossier", str(CASE), "--out", str(target), "--quiet", "--no-synthesis"])
+    assert main(["dossier", str(CASE), "--out", str(target), "--quiet", "--no-synthesis"]) == 3
     after = {p.relative_to(target): p.read_bytes() for p in target.rglob("*") if p.is_file()}
     assert after == before
     assert [p.name for p in tmp_path.iterdir()] == ["keep"]  # no half-written folder left beside it
