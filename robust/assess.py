@@ -56,7 +56,7 @@ def assess(
         chk,
         tm,
         design=design,
-        linear_why="skipped on request (--time-only)",
-        time_why="skipped on request (--linear-only)",
+        linear_why="linear check not run",
+        time_why="skipped (--linear-only)",
     )
     return Assessment(check=chk, time=tm, verdicts=verdicts, default_manoeuvres=case.default_manoeuvres)

@@ -150,33 +150,37 @@ def _worst_index(metric: str, values: np.ndarray) -> int:
     return int(np.argmax(METRICS[metric].badness(values)))
 
 
-def _input_margins(case: Case, K: np.ndarray, points: np.ndarray) -> tuple[InputMargin, ...]:
+def _input_margins(case: Case, K: np.ndarray, points: np.ndarray, chunk: int = 50_000) -> tuple[InputMargin, ...]:
+    """Loop-at-a-time margins per wheel: nominal and worst over ``points``, in chunks (memory stays flat)."""
+
+    def per_wheel(m, j: int) -> dict[str, np.ndarray]:
+        return {
+            "gain_margin_up_db": m.gain_margin_upper_db[:, j],
+            "gain_margin_down_db": -m.gain_margin_lower_db[:, j],
+            "phase_margin_deg": m.phase_margin_deg[:, j],
+            "delay_margin_ms": 1e3 * m.delay_margin_s[:, j],
+            "disk_margin": m.disk_margin[:, j],
+            "disk_gain_high_db": 20 * np.log10(m.disk_gain_high[:, j]),
+            "disk_phase_deg": m.disk_phase_deg[:, j],
+        }
+
     nom = reduced_model(case.box.plant(case.box.nominal[None, :]))
     lm_nom = loop_margins(nom.A, nom.B, K)
-    model = reduced_model(case.box.plant(points))
-    lm = loop_margins(model.A, model.B, K)
-    out = []
-    for j, wheel in enumerate(("left", "right")):
-
-        def pick(m, reduce_worst, j=j):
-            return {
-                "gain_margin_up_db": reduce_worst(m.gain_margin_upper_db[:, j], "min"),
-                "gain_margin_down_db": reduce_worst(-m.gain_margin_lower_db[:, j], "min"),
-                "phase_margin_deg": reduce_worst(m.phase_margin_deg[:, j], "min"),
-                "delay_margin_ms": reduce_worst(1e3 * m.delay_margin_s[:, j], "min"),
-                "disk_margin": reduce_worst(m.disk_margin[:, j], "min"),
-                "disk_gain_high_db": reduce_worst(20 * np.log10(m.disk_gain_high[:, j]), "min"),
-                "disk_phase_deg": reduce_worst(m.disk_phase_deg[:, j], "min"),
-            }
-
-        out.append(
-            InputMargin(
-                wheel=wheel,
-                nominal=pick(lm_nom, lambda v, _: float(v[0])),
-                worst=pick(lm, lambda v, _: float(np.min(v))),
-            )
+    worst: list[dict[str, float]] = [{}, {}]
+    for start in range(0, len(points), chunk):
+        model = reduced_model(case.box.plant(points[start : start + chunk]))
+        lm = loop_margins(model.A, model.B, K)
+        for j in range(2):
+            for k, v in per_wheel(lm, j).items():
+                worst[j][k] = min(worst[j].get(k, np.inf), float(np.min(v)))
+    return tuple(
+        InputMargin(
+            wheel=wheel,
+            nominal={k: float(v[0]) for k, v in per_wheel(lm_nom, j).items()},
+            worst=worst[j],
         )
-    return tuple(out)
+        for j, wheel in enumerate(("left", "right"))
+    )
 
 
 def check_gain(

@@ -180,8 +180,11 @@ def overall_verdict(
                     worst=worst_v.worst,
                     margin=worst_v.margin,
                     unit=worst_v.unit,
-                    failing=f"{fails} of {worst_v.samples} samples"
-                    + ("; fails at a corner or in the search" if not passed and fails == 0 else ""),
+                    failing=(
+                        "worst at a corner/search"
+                        if not passed and fails == 0
+                        else f"{fails} of {worst_v.samples} samples"
+                    ),
                 )
             )
     keys_time = [NO_FALL, *(k for k in TIME_KEYS if k in case.requirements)]

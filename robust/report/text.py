@@ -88,21 +88,21 @@ def model_text(f: ModelFacts) -> str:
     out.append(f"  full 7-state model: rank {f.full_rank} of 7")
     out.append(f"  reduced 4-state model: rank {f.reduced_rank} of 4")
     for mode, why in f.uncontrollable:
-        out.append(f"  uncontrollable mode at s = {fmt(mode.eigenvalue)}: {why}")
-    out.append(
-        "  x and heading are controllable integrators of speed and yaw rate; the balance"
+        out += _wrap(f"uncontrollable mode at s = {fmt(mode.eigenvalue)}: {why}")
+    out += _wrap(
+        "x and heading are controllable integrators of speed and yaw rate; the balance"
         " controller leaves them to an outer loop, so they are dropped with y."
     )
     out += ["", "Speed and yaw-rate commands by state shift (x - x_ref)"]
     if f.shift_exact:
         out.append("  exact: A x_ref = 0 for any speed and yaw-rate reference (no bearing friction)")
     else:
-        out.append(
-            "  not exact: bearing friction makes A x_ref nonzero, leaving a steady-state error"
+        out += _wrap(
+            "not exact: bearing friction makes A x_ref nonzero, leaving a steady-state error"
             " unless a trim torque is added"
         )
-        out.append(
-            f"  trim torque per wheel: {fmt(f.trim_per_speed_n_m_s)} N m per m/s of speed;"
+        out += _wrap(
+            f"trim torque per wheel: {fmt(f.trim_per_speed_n_m_s)} N m per m/s of speed;"
             f" +/-{fmt(f.trim_per_yaw_rate_n_m_s)} N m per rad/s of yaw rate (right +, left -)"
         )
     if f.corners is not None:
@@ -111,10 +111,10 @@ def model_text(f: ModelFacts) -> str:
         rows = []
         worst = int(np.argmax(c.unstable_pole))
         for i, pt in enumerate(c.points):
-            mark = "<- fastest divergence" if i == worst else ""
+            mark = "<- fastest" if i == worst else ""
             rows.append(
                 [str(i + 1)]
-                + [fmt(v) for v in pt]
+                + [fmt(v, 4) for v in pt]
                 + [
                     fmt(c.unstable_pole[i]),
                     fmt(c.time_to_double_s[i] * 1e3),
@@ -123,7 +123,10 @@ def model_text(f: ModelFacts) -> str:
                     mark,
                 ]
             )
-        out.append(table(["corner", *c.names, "divergence [1/s]", "double [ms]", "rank 4", "rank 7", "note"], rows))
+        heads = [f"p{j + 1}" for j in range(len(c.names))]
+        out.append(table(["corner", *heads, "divergence [1/s]", "double [ms]", "rank 4", "rank 7", ""], rows))
+        for j, n in enumerate(c.names):
+            out += _wrap(f"p{j + 1} = {parameter_label(n)}")
     return "\n".join(out) + "\n"
 
 
@@ -371,7 +374,7 @@ def verdict_block(v) -> list[str]:
     rows = []
     for o in v.outcomes:
         if o.status == "not evaluated":
-            rows.append([o.label, o.domain, "not evaluated", "-", o.why[:30]])
+            rows.append([o.label, o.domain, "not evaluated", "-", o.why[:40]])
         else:
             rows.append([o.label, o.domain, o.status if o.status == "pass" else "FAIL", o.evidence, o.failing])
     out.append(table(["requirement", "check", "outcome", "evidence", "failing"], rows))
