@@ -31,7 +31,7 @@ from robust.synthesis.polytope import Polytope, moment_box, sampled_hull  # noqa
 
 def main() -> None:
     case = load_case(ROOT / "cases" / "stand_up_transporter.toml")
-    spec = replace(make_spec(case), objective="gain", max_frequency=None)
+    spec = replace(make_spec(case)[0], objective="gain", max_frequency=None)
     poly = moment_box(case.box)
     t = time.perf_counter()
     r = synthesize(poly, spec)

@@ -290,6 +290,10 @@ def main(argv: Sequence[str] | None = None) -> int:
         from robust.progress import Progress
 
         progress = Progress(enabled=not getattr(args, "quiet", False))
+        import warnings
+
+        # numeric warnings from libraries are noise on a screen: every result is checked and errors are reported
+        warnings.filterwarnings("ignore", category=RuntimeWarning)
         return int(args.func(args, progress))
     except KeyboardInterrupt:
         _quiet_stdout()

@@ -162,9 +162,9 @@ def test_small_step_matches_linear_sampled_data_response(transporter):
         np.testing.assert_allclose(ours[j], resp.outputs[j], atol=1e-3 * scale)
 
 
-def test_large_step_falls_and_survivable_step_is_found(setup):
+def test_large_step_falls_and_largest_step_is_found(setup):
     """Acceptance: a gain that passes the linear checks still falls for a big
-    enough speed step; the survivable step lies between a survived and a failed run."""
+    enough speed step; the largest handled step lies between a handled and a failed run."""
     case, K, plant = setup
     ctl = case.controller
     man = Manoeuvre("probe", "speed_step", 3.0, start_s=0.1, speed_m_s=1.0)
