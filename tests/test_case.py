@@ -111,6 +111,25 @@ BAD = [
         edit('title = "Stand-up', 'title = 3\nx = "Stand-up'),
         r"unknown key 'x'|'title': expected text",
     ),
+    # reproductions of reported hardening faults: each must be a one-line message naming the key
+    (
+        "complex poles not a list",
+        edit("poles = [-1.0, -2.5, -6.0, -9.0]", "poles = [-1.0, -2.5]\ncomplex_poles = 5"),
+        r"'gains\.placed\.complex_poles': expected a list",
+    ),
+    (
+        "grid beyond budget",
+        edit('plan = "monte_carlo"', 'plan = "grid"\ngrid_points = 1000000'),
+        r"'study\.grid_points'.*beyond the budget",
+    ),
+    ("yaw rate beyond the drive", edit("yaw_rate_rad_s = 1.0", "yaw_rate_rad_s = 100.0"), r"yaw_rate_rad_s.*no-load"),
+    ("absurd yaw rate", edit("yaw_rate_rad_s = 1.0", "yaw_rate_rad_s = 1e300"), r"yaw_rate_rad_s.*no-load"),
+    ("wheel radius 1e300", edit("radius_m = 0.24", "radius_m = 1e300"), r"wheel\.radius_m.*plausible range"),
+    (
+        "tiny nominal payload with a mass range",
+        edit("[vehicle.payload]          # the rider, standing\nmass_kg = 80.0", "[vehicle.payload]\nmass_kg = 1e-300"),
+        r"payload mass.*at least 1/1000|nominal value",
+    ),
 ]
 
 
@@ -155,3 +174,15 @@ def test_bundled_cases_load_and_compose(transporter, cart):
     # payload inertias scale with the payload mass (constant radii of gyration)
     q = plant_batch(transporter.vehicle, {"payload.mass_kg": np.array([40.0])})
     assert q.I3[0] == pytest.approx(0.9 + 0.8, rel=1e-14)
+
+
+def test_renamed_requirement_key_names_the_new_key():
+    text = edit("[requirements]", "[requirements]\nmin_survivable_speed_step_m_s = 1.0")
+    with pytest.raises(CaseError, match="renamed 'min_speed_step_within_limits_m_s'"):
+        parse_case(text)
+
+
+def test_sample_count_beyond_budget_exits_2(capsys):
+    assert main(["check", str(CASES / "delivery_cart.toml"), "--samples", "1000000000000", "--quiet"]) == 2
+    err = capsys.readouterr().err
+    assert "--samples" in err and "budget" in err and err.count("\n") == 1

@@ -98,3 +98,15 @@ def test_bad_case_exits_2_and_writes_nothing(tmp_path, capsys):
     assert main(["dossier", str(bad), "--out", str(out)]) == 2
     assert "missing table 'vehicle'" in capsys.readouterr().err
     assert not out.exists()
+
+
+def test_dossier_text_has_no_internal_names(two_runs):
+    """Plain words in the reviewer's documents: no internal symbols, Python literals or raw solver states."""
+    import re
+
+    a, _b, _ = two_runs
+    for name in ("dossier.md", "dossier.html"):
+        text = (a / name).read_text()
+        for pattern in (r"\bm11\b", r"\bc_b\b", r"\bTrue\b", r"\bFalse\b", "optimal_inaccurate", r"\[\s*-?\d+\.\d+,"):
+            assert not re.search(pattern, text), (name, pattern)
+    assert (a / ".robust-dossier").is_file()

@@ -21,7 +21,8 @@ from robust.dynamics import torque_envelope
 from robust.outputs import FolderTarget, file_stems, staged_folder
 from robust.report import figures as F
 from robust.report.jsonout import dumps
-from robust.report.text import fmt, time_verdict_row
+from robust.report.text import fmt, plain_symbol, time_verdict_row
+from robust.synthesis.lmi import explain_status
 from robust.vehicle import PARAMETERS, get_parameter, plant_batch
 
 SAFETY = [
@@ -61,6 +62,21 @@ class Figure:
     svg: str
     caption: str
     mpl: object = None
+
+
+def _plain(v) -> str:
+    """A value in plain words for a table cell: no Python lists, dicts or True/False."""
+    if isinstance(v, bool):
+        return "yes" if v else "no"
+    if isinstance(v, float):
+        return fmt(v, 6)
+    if isinstance(v, dict):
+        return "; ".join(f"{k.replace('_', ' ')}: {_plain(x)}" for k, x in v.items())
+    if isinstance(v, (list, tuple)):
+        return ", ".join(_plain(x) for x in v)
+    if isinstance(v, str):
+        return plain_symbol(v)
+    return str(v)
 
 
 def _h(level, text):
@@ -105,7 +121,7 @@ def _blocks(d, today: str) -> tuple[list, list[Figure]]:
     B.append(_h(2, "Model assumptions and limits"))
     B += [_p("- " + a) for a in ASSUMPTIONS]
     B.append(_h(2, "Reproducibility stamp"))
-    rows = [[k, str(v)] for k, v in st.items() if k != "packages"]
+    rows = [[k.replace("_", " "), _plain(v)] for k, v in st.items() if k != "packages"]
     rows += [[f"package {k}", v] for k, v in st["packages"].items()]
     B.append(Table("Stamp", ["item", "value"], rows, "stamp"))
     # case summary
@@ -133,12 +149,12 @@ def _blocks(d, today: str) -> tuple[list, list[Figure]]:
                 ["samples", str(s.samples)],
                 ["seed", str(s.seed)],
                 ["confidence", fmt(s.confidence)],
-                ["worst-case search", str(s.search)],
+                ["worst-case search", "on" if s.search else "off"],
                 ["simulation samples (besides corners)", str(s.simulation_samples)],
                 ["controller period [ms]", fmt(case.controller.sample_period_s * 1e3)],
                 ["controller latency [ms]", fmt(case.controller.latency_s * 1e3)],
                 ["fall angle [deg]", fmt(np.degrees(case.controller.fall_angle_rad))],
-                ["friction trim", str(case.controller.trim)],
+                ["friction trim", "on" if case.controller.trim else "off"],
             ],
             "study",
         )
@@ -313,12 +329,12 @@ def _blocks(d, today: str) -> tuple[list, list[Figure]]:
         p, r = ds.polytope, ds.synthesis
         B.append(_h(2, f"LMI synthesis of '{ds.gain.name}'"))
         B.append(_p(f"Polytope route {p.route} with {p.vertices} vertices. Guarantee: {p.guarantee}."))
-        rows = [[k, fmt(v) if isinstance(v, float) else str(v)] for k, v in p.facts.items() if not isinstance(v, dict)]
+        rows = [[k.replace("_", " "), _plain(v)] for k, v in p.facts.items() if not isinstance(v, dict)]
         rows += [
             ["objective", r.spec.objective],
             ["Lyapunov matrix", r.spec.lyapunov],
             ["certified decay rate [1/s]", fmt(r.decay_rate)],
-            ["solver", f"{r.solver} ({r.status})"],
+            ["solver", f"{r.solver}: {explain_status(r.status)}"],
             ["largest LMI eigenvalue at the vertices (numpy)", f"{r.certificate.smallest_slack:.3e}"],
             ["smallest Lyapunov eigenvalue", f"{r.certificate.smallest_x_eig:.3e}"],
             ["certificate", "valid" if r.certificate.passed else "NOT VALID"],
@@ -341,7 +357,7 @@ def _blocks(d, today: str) -> tuple[list, list[Figure]]:
                 f"{stem}_gain",
             )
         )
-        prov = [[k, str(v)] for k, v in sorted(g.gain.provenance.items())]
+        prov = [[k.replace("_", " "), _plain(v)] for k, v in sorted(g.gain.provenance.items())]
         if prov:
             B.append(Table("Provenance", ["item", "value"], prov, None))
         rows = []

@@ -492,6 +492,34 @@ def dossier_text(data, folder) -> str:
     return "\n".join(out) + "\n"
 
 
+# plain words for the internal symbols of the polytope facts
+SYMBOL_WORDS = {
+    "m11": "effective mass (speed row)",
+    "m22": "effective yaw inertia",
+    "m33": "effective pitch inertia",
+    "Ml": "mass x centre-of-mass height",
+    "k": "torque-constant ratio",
+    "c_b": "bearing friction",
+    "chassis.m": "chassis mass",
+    "chassis.mh": "chassis mass x height",
+    "chassis.mh2": "chassis mass x height^2",
+    "payload.m": "payload mass",
+    "payload.mh": "payload mass x height",
+    "payload.mh2": "payload mass x height^2",
+    "chassis.pitch": "chassis pitch inertia",
+    "chassis.yaw": "chassis yaw inertia",
+    "payload.pitch:per_kg": "payload pitch inertia per kg",
+    "payload.yaw:per_kg": "payload yaw inertia per kg",
+    "payload.roll:per_kg": "payload roll inertia per kg",
+    "chassis.roll": "chassis roll inertia",
+}
+
+
+def plain_symbol(name: str) -> str:
+    """An internal symbol of the synthesis facts in plain words (unknown names pass through)."""
+    return SYMBOL_WORDS.get(name, name.replace("_", " "))
+
+
 def _fact_text(k: str, v) -> str:
     if isinstance(v, bool):
         return "yes" if v else "no"
@@ -499,6 +527,8 @@ def _fact_text(k: str, v) -> str:
         return fmt(v)
     if isinstance(v, (list, tuple)):
         return ", ".join(_fact_text("", x) for x in v)
+    if isinstance(v, str):
+        return plain_symbol(v) if v in SYMBOL_WORDS else v
     return str(v)
 
 
@@ -521,7 +551,7 @@ def design_text(case, d) -> str:
         out.append(
             table(
                 ["moment", "low", "high", "unit"],
-                [[k.replace("_", " "), fmt(a), fmt(b), units.get(k, "")] for k, (a, b) in mi.items()],
+                [[plain_symbol(k), fmt(a), fmt(b), units.get(k, "")] for k, (a, b) in mi.items()],
             )
         )
     s = r.spec
