@@ -86,15 +86,15 @@ def make_spec(case: Case, overrides: dict | None = None) -> tuple[Spec, dict[str
     pdlf = opts.get("lyapunov", "common") == "parameter_dependent"
     damping = opts.get("min_damping_ratio", req.get("min_damping_ratio"))
     max_freq = opts.get("max_natural_frequency_rad_s", req.get("max_natural_frequency_rad_s"))
+    if pdlf and opts.get("objective", "gain") == "cost":
+        raise ValueError(
+            "'synthesis.objective' = 'cost' is not available with the parameter-dependent Lyapunov variant; "
+            "use --objective gain or decay, or lyapunov = 'common'"
+        )
     if pdlf:
         for key, value in (("min_damping_ratio", damping), ("max_natural_frequency_rad_s", max_freq)):
             if value is None:
                 continue
-            if key in case.synthesis:
-                raise ValueError(
-                    f"'synthesis.{key}': the parameter-dependent Lyapunov variant cannot impose it; "
-                    "remove the key (the requirement is then checked on samples) or use lyapunov = 'common'"
-                )
             not_imposed[key] = "the parameter-dependent Lyapunov variant imposes decay rate, gain size and torque only"
         damping = max_freq = None
     elif max_freq is not None and opts.get("route", "moment_box") == "moment_box":
