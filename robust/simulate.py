@@ -408,22 +408,20 @@ def largest_step(
     """
     if criterion not in STEP_CRITERIA:
         raise ValueError(f"criterion: expected one of {', '.join(STEP_CRITERIA)}, got {criterion!r}")
-    limits = criterion == "within_limits"
     n = plant.n
-    m = points_per_round
-    lo = np.zeros(n) if lower is None else np.minimum(np.asarray(lower, dtype=float), float(upper))
-    hi = np.full(n, float(upper))
-    top_ok = _survives(plant, K, manoeuvre, controller, hi, limits)
-    rep = plant.take(np.repeat(np.arange(n), m))
-    frac = np.arange(1, m + 1) / (m + 1)
-    for _ in range(rounds):
-        amps = lo[:, None] + (hi - lo)[:, None] * frac[None, :]
-        ok = _survives(rep, K, manoeuvre, controller, amps.reshape(-1), limits).reshape(n, m)
-        first_fail = np.where(~ok.all(axis=1), np.argmin(ok, axis=1), m)
-        new_lo = np.where(first_fail > 0, amps[np.arange(n), np.maximum(first_fail - 1, 0)], lo)
-        new_hi = np.where(first_fail < m, amps[np.arange(n), np.minimum(first_fail, m - 1)], hi)
-        lo = np.where(top_ok, hi, new_lo)
-        hi = np.where(top_ok, hi, new_hi)
+    P = plant_columns(plant, controller)
+    M = manoeuvre_columns(manoeuvre, controller, np.ones(n), stop=criterion == "within_limits")
+    Ks = np.broadcast_to(np.asarray(K, dtype=float), (n, 2, 4))
+    lo, hi, top_ok = bracket_rows(
+        P,
+        Ks,
+        M,
+        controller,
+        upper=np.full(n, float(upper)),
+        lower=lower,
+        rounds=rounds,
+        points_per_round=points_per_round,
+    )
     amp = {
         "speed_step": manoeuvre.speed_m_s,
         "speed_ramp": manoeuvre.speed_m_s,
@@ -435,8 +433,74 @@ def largest_step(
     return {"handled": lo * amp, "failed": hi * amp, "bounded": top_ok, "fraction": lo}
 
 
-def _survives(plant, K, manoeuvre, controller, scale, limits: bool = True) -> np.ndarray:
-    res = simulate(plant, K, manoeuvre, controller, scale=scale, stop_at_current_limit=limits)
-    if not limits:
-        return ~res.fell
-    return ~res.fell & ~res.metrics["reached_current_limit"]
+def _scaled_rows(M: np.ndarray, scale: np.ndarray) -> np.ndarray:
+    from robust import engine as E
+
+    out = M.copy()
+    for c in (E.M_V, E.M_W, E.M_PUSH_F, E.M_PITCH0):
+        out[:, c] = M[:, c] * scale
+    return out
+
+
+def _handled(P, Ks, M, controller, scale, progress=None) -> np.ndarray:
+    """True where the scaled run is handled (no fall; within limits where the row stops at the limit)."""
+    from robust import engine as E
+
+    out, _ = E.run_batch(
+        P,
+        Ks,
+        _scaled_rows(M, scale),
+        sample_period_s=controller.sample_period_s,
+        latency_s=controller.latency_s,
+        substeps=controller.substeps,
+        fall_angle_rad=controller.fall_angle_rad,
+        progress=progress,
+    )
+    fell = out[:, E.O["fell"]] > 0
+    limit = np.maximum(out[:, E.O["at_current_l"]], out[:, E.O["at_current_r"]]) > 0
+    return ~fell & ~(limit & (M[:, E.M_STOP] > 0))
+
+
+def bracket_rows(
+    P: np.ndarray,
+    Ks: np.ndarray,
+    M: np.ndarray,
+    controller: Controller,
+    *,
+    upper: np.ndarray,
+    lower: np.ndarray | None = None,
+    rounds: int = 4,
+    points_per_round: int = 7,
+    progress=None,
+    advance=None,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """The largest-step bracketing on a flat set of rows (any mix of vehicles, gains and probes).
+
+    Row ``i`` is the unit-amplitude probe ``M[i]`` (its ``M_STOP`` column set for the
+    within-limits criterion) on vehicle ``P[i]`` with gain ``Ks[i]``; ``upper[i]``
+    bounds its amplitude factor.  Every round is one kernel call over all rows
+    times ``points_per_round`` amplitudes.  Returns ``(lo, hi, top_ok)`` as
+    amplitude factors.
+    """
+    n = P.shape[0]
+    m = points_per_round
+    upper = np.asarray(upper, dtype=float)
+    lo = np.zeros(n) if lower is None else np.minimum(np.asarray(lower, dtype=float), upper)
+    hi = upper.copy()
+    top_ok = _handled(P, Ks, M, controller, hi, progress)
+    if advance is not None:
+        advance(1)
+    rep = np.repeat(np.arange(n), m)
+    Pr, Kr, Mr = P[rep], Ks[rep], M[rep]
+    frac = np.arange(1, m + 1) / (m + 1)
+    for _ in range(rounds):
+        amps = lo[:, None] + (hi - lo)[:, None] * frac[None, :]
+        ok = _handled(Pr, Kr, Mr, controller, amps.reshape(-1), progress).reshape(n, m)
+        first_fail = np.where(~ok.all(axis=1), np.argmin(ok, axis=1), m)
+        new_lo = np.where(first_fail > 0, amps[np.arange(n), np.maximum(first_fail - 1, 0)], lo)
+        new_hi = np.where(first_fail < m, amps[np.arange(n), np.minimum(first_fail, m - 1)], hi)
+        lo = np.where(top_ok, hi, new_lo)
+        hi = np.where(top_ok, hi, new_hi)
+        if advance is not None:
+            advance(1)
+    return lo, hi, top_ok

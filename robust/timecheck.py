@@ -18,7 +18,7 @@ import numpy as np
 from robust.case import Case, Study
 from robust.gains import GainSet
 from robust.progress import bar
-from robust.simulate import Envelope, Manoeuvre, Trace, largest_step, simulate
+from robust.simulate import Envelope, Manoeuvre, Trace
 from robust.uncertainty import corners, monte_carlo
 
 Progress = Callable[[str], None]
@@ -155,26 +155,126 @@ def step_probes(case: Case) -> tuple[tuple[Manoeuvre, float], ...]:
     )
 
 
+ENVELOPE_MODELS = 200  # envelopes and traces use the first this-many simulated models of each run set
+
+
+@dataclass(frozen=True)
+class _Runs:
+    """One gain set through one manoeuvre on every model (a slice of the flat batch)."""
+
+    metrics: dict
+    fell: np.ndarray
+    fall_time_s: np.ndarray
+    envelope: Envelope | None
+    records: np.ndarray | None
+
+
+def simulate_all(case: Case, gains: list[GainSet], points: np.ndarray, *, progress=None) -> list[list[_Runs]]:
+    """Every manoeuvre of every gain set on every model in one kernel call (flat batch gain x manoeuvre x model)."""
+    from robust import engine as E
+    from robust.simulate import envelope_from_records, manoeuvre_columns, metrics_from_outputs, plant_columns
+
+    ctl = case.controller
+    plant = case.box.plant(points)
+    n = plant.n
+    P0 = plant_columns(plant, ctl)
+    record = np.arange(n) < ENVELOPE_MODELS
+    Ps, Ks, Ms = [], [], []
+    for g in gains:
+        for man in case.manoeuvres:
+            M = manoeuvre_columns(man, ctl, np.ones(n))
+            M[:, E.M_RECORD] = record
+            Ps.append(P0)
+            Ks.append(np.broadcast_to(g.K, (n, 2, 4)))
+            Ms.append(M)
+    M_all = np.concatenate(Ms)
+    steps = int(M_all[:, E.M_STEPS].max())
+    out, rec = E.run_batch(
+        np.concatenate(Ps),
+        np.concatenate(Ks),
+        M_all,
+        sample_period_s=ctl.sample_period_s,
+        latency_s=ctl.latency_s,
+        substeps=ctl.substeps,
+        fall_angle_rad=ctl.fall_angle_rad,
+        record_steps=steps,
+        progress=progress,
+    )
+    per = int(record.sum())
+    result = []
+    k = 0
+    for _g in gains:
+        row = []
+        for man in case.manoeuvres:
+            sl = slice(k * n, (k + 1) * n)
+            mine = rec[k * per : (k + 1) * per, : int(round(man.duration_s / ctl.sample_period_s))]
+            row.append(
+                _Runs(
+                    metrics=metrics_from_outputs(out[sl], M_all[sl], ctl, man.steps_speed, man.steps_yaw_rate),
+                    fell=out[sl, E.O["fell"]] > 0,
+                    fall_time_s=out[sl, E.O["fall_time"]],
+                    envelope=envelope_from_records(mine, ctl.sample_period_s),
+                    records=mine,
+                )
+            )
+            k += 1
+        result.append(row)
+    return result
+
+
+def largest_steps_all(case: Case, gains: list[GainSet], points: np.ndarray, *, progress=None, advance=None) -> list:
+    """For every gain set and both step probes, the largest step of every model: within limits, then without a fall.
+
+    Returns, per gain set, a list of ``(probe, upper, within_limits, without_fall, bounded)``.
+    """
+    from robust import engine as E
+    from robust.simulate import bracket_rows, manoeuvre_columns, plant_columns
+
+    ctl = case.controller
+    plant = case.box.plant(points)
+    n = plant.n
+    P0 = plant_columns(plant, ctl)
+    probes = step_probes(case)
+    Ps, Ks, Ms, ups = [], [], [], []
+    for g in gains:
+        for man, upper in probes:
+            Ps.append(P0)
+            Ks.append(np.broadcast_to(g.K, (n, 2, 4)))
+            Ms.append(manoeuvre_columns(man, ctl, np.ones(n), stop=True))
+            ups.append(np.full(n, float(upper)))
+    P, K, M, up = np.concatenate(Ps), np.concatenate(Ks), np.concatenate(Ms), np.concatenate(ups)
+    lo, _hi, bounded = bracket_rows(P, K, M, ctl, upper=up, progress=progress, advance=advance)
+    M_fall = M.copy()
+    M_fall[:, E.M_STOP] = 0.0
+    lo_fall, _hi2, _b = bracket_rows(P, K, M_fall, ctl, upper=up, lower=lo, progress=progress, advance=advance)
+    out = []
+    k = 0
+    for _g in gains:
+        row = []
+        for man, upper in probes:
+            sl = slice(k * n, (k + 1) * n)
+            row.append((man, upper, lo[sl].copy(), lo_fall[sl].copy(), bounded[sl].copy()))
+            k += 1
+        out.append(row)
+    return out
+
+
 def time_check_gain(
     case: Case,
     gain: GainSet,
     points: np.ndarray,
-    *,
-    progress: Progress | None = None,
-    advance: Callable[[int], None] | None = None,
+    runs: list[_Runs],
+    steps: list,
 ) -> GainTimeCheck:
-    """Simulate one gain set through every manoeuvre and find its largest command steps."""
-    say = progress or (lambda _m: None)
+    """The time-domain results of one gain set from its simulated runs and largest-step searches."""
+    from robust.simulate import simulate, trace_from_records
+
     names = case.box.names
-    plant = case.box.plant(points)
     ctl = case.controller
     results = []
     all_metrics: dict[str, list[np.ndarray]] = {}
-    for man in case.manoeuvres:
-        say(f"{gain.name}: simulating '{man.name}' on {plant.n} models")
-        r = simulate(plant, gain.K, man, ctl, envelope=True)
-        if advance is not None:
-            advance(1)
+    for man, r in zip(case.manoeuvres, runs):
+        n = r.fell.shape[0]
         vals = dict(r.metrics)
         vals["peak_pitch_deg"] = np.degrees(vals.pop("peak_pitch_rad"))
         vals["peak_pitch_rate_deg_s"] = np.degrees(vals.pop("peak_pitch_rate_rad_s"))
@@ -197,14 +297,17 @@ def time_check_gain(
             all_metrics.setdefault("settling_time_s", []).append(np.max(np.stack(stepped), axis=0))
         badness = np.where(r.fell, np.inf, vals["peak_pitch_deg"])
         iw = int(np.argmax(np.where(r.fell, -r.fall_time_s, badness)) if r.fell.any() else np.argmax(badness))
-        tr = simulate(plant.take(slice(iw, iw + 1)), gain.K, man, ctl, trace=True).trace
+        if r.records is not None and iw < r.records.shape[0]:
+            tr = trace_from_records(r.records[iw : iw + 1], ctl.sample_period_s)
+        else:
+            tr = simulate(case.box.plant(points[iw : iw + 1]), gain.K, man, ctl, trace=True).trace
         fell_any = bool(r.fell.any())
         all_metrics.setdefault("fell", []).append(r.fell.astype(float))
         results.append(
             ManoeuvreResult(
                 name=man.name,
                 kind=man.kind,
-                models=plant.n,
+                models=n,
                 fell=int(r.fell.sum()),
                 first_fall_s=float(r.fall_time_s.min()) if fell_any else float("inf"),
                 worst=tuple(worst),
@@ -214,26 +317,22 @@ def time_check_gain(
             )
         )
     surv = []
-    for man, upper in step_probes(case):
-        say(f"{gain.name}: {man.name} each of {plant.n} models handles")
-        s = largest_step(plant, gain.K, man, ctl, upper=upper, criterion="within_limits")
-        f = largest_step(plant, gain.K, man, ctl, upper=upper, criterion="without_fall", lower=s["fraction"])
-        if advance is not None:
-            advance(1)
-        i = int(np.argmin(s["handled"]))
-        j = int(np.argmin(f["handled"]))
+    for man, upper, within, without, bounded in steps:
+        i = int(np.argmin(within))
+        j = int(np.argmin(without))
+        amp = man.speed_m_s if man.kind == "speed_step" else man.yaw_rate_rad_s
         unit = "m/s" if man.kind == "speed_step" else "rad/s"
         surv.append(
             LargestStep(
                 kind=man.kind,
                 unit=unit,
                 points=points,
-                within_limits=s["handled"],
-                without_fall=f["handled"],
-                bounded=s["bounded"],
-                worst=float(s["handled"][i]),
+                within_limits=within * amp,
+                without_fall=without * amp,
+                bounded=bounded,
+                worst=float(within[i] * amp),
                 worst_at=_at(names, points[i]),
-                worst_without_fall=float(f["handled"][j]),
+                worst_without_fall=float(without[j] * amp),
                 worst_without_fall_at=_at(names, points[j]),
                 upper=float(upper),
             )
@@ -313,9 +412,12 @@ def run_time_check(
     if not gains:
         raise ValueError("no gain set to simulate: add [gains.NAME] to the case or pass a gain file")
     points = simulation_points(case, study)
-    total = len(gains) * (len(case.manoeuvres) + 2)
+    total = 1 + 2 * 5
     with bar(progress, total, f"time-domain check of {len(gains)} gain sets on {len(points)} models") as advance:
-        checks = tuple(time_check_gain(case, g, points, progress=progress, advance=advance) for g in gains)
+        runs = simulate_all(case, gains, points, progress=progress)
+        advance(1)
+        steps = largest_steps_all(case, gains, points, progress=progress, advance=advance)
+    checks = tuple(time_check_gain(case, g, points, runs[i], steps[i]) for i, g in enumerate(gains))
     return TimeCheckResult(
         title=case.title,
         case_sha256=case.sha256,

@@ -294,6 +294,11 @@ def linear_block(g, result) -> list[str]:
     return out
 
 
+def _at_least(value: float, upper: float) -> str:
+    """A step value; ``>= x`` when the search reached the drive's top speed (no larger step exists to try)."""
+    return f">= {fmt(value)}" if value >= upper * (1 - 1e-9) else fmt(value)
+
+
 def time_block(tg, result) -> list[str]:
     """One gain set's time-domain check: manoeuvres, largest steps, requirements."""
     names = result.parameter_names
@@ -320,8 +325,9 @@ def time_block(tg, result) -> list[str]:
                 [
                     what,
                     s.unit,
-                    f"{fmt(s.worst)} ({fmt(float(np.median(s.within_limits)))})",
-                    f"{fmt(s.worst_without_fall)} ({fmt(float(np.median(s.without_fall)))})",
+                    f"{_at_least(s.worst, s.upper)} ({_at_least(float(np.median(s.within_limits)), s.upper)})",
+                    f"{_at_least(s.worst_without_fall, s.upper)} "
+                    f"({_at_least(float(np.median(s.without_fall)), s.upper)})",
                 ]
             )
         out.append(table(["step", "unit", "within drive limits", "without a fall"], rows))
