@@ -31,7 +31,7 @@ sys.path.insert(0, str(ROOT / "tests"))
 from numpy_engine import simulate_numpy  # noqa: E402
 
 from robust.case import load_case, resolve_gain  # noqa: E402
-from robust.simulate import Controller, Manoeuvre, simulate  # noqa: E402
+from robust.simulate import Manoeuvre, simulate  # noqa: E402
 from robust.uncertainty import monte_carlo  # noqa: E402
 
 CART = ROOT / "cases" / "delivery_cart.toml"

@@ -525,7 +525,10 @@ def _blocks(d, today: str) -> tuple[list, list[Figure]]:
                     )
                 )
     B.append(_h(2, "Figures"))
-    figs = [Figure(name, F.svg(make()), caption) for name, caption, make in figure_plan(d)]
+    figs = []
+    for name, caption, make in figure_plan(d):
+        fig = make()  # drawn once: the same figure goes into the SVG files, the HTML and the PDF
+        figs.append(Figure(name, F.svg(fig, close=False), caption, mpl=fig))
     return B, figs
 
 
@@ -729,6 +732,24 @@ def write_dossier(d, target: FolderTarget, *, today: str) -> dict[str, Path]:
     """Write every dossier file into the checked folder ``target`` crash-safely; returns the main paths."""
     out_dir = target.path
     blocks, figs = _blocks(d, today)
+    try:
+        _write_files(d, target, blocks, figs, today)
+    finally:
+        import matplotlib.pyplot as plt
+
+        for f in figs:
+            if f.mpl is not None:
+                plt.close(f.mpl)
+    return {
+        "folder": out_dir,
+        "html": out_dir / "dossier.html",
+        "pdf": out_dir / "dossier.pdf",
+        "markdown": out_dir / "dossier.md",
+        "json": out_dir / "results.json",
+    }
+
+
+def _write_files(d, target: FolderTarget, blocks, figs, today: str) -> None:
     with staged_folder(target) as tmp:
         (tmp / "tables").mkdir()
         (tmp / "figures").mkdir()
@@ -753,22 +774,10 @@ def write_dossier(d, target: FolderTarget, *, today: str) -> dict[str, Path]:
             "verdicts": d.verdicts,
         }
         (tmp / "results.json").write_text(dumps(results), encoding="utf-8")
-        _pdf_with_figures(blocks, d, tmp / "dossier.pdf")
+        render_pdf(blocks, figs, tmp / "dossier.pdf")
         (tmp / "COMPLETE").write_text(f"dossier complete; generated {today}\n", encoding="utf-8")
-    return {
-        "folder": out_dir,
-        "html": out_dir / "dossier.html",
-        "pdf": out_dir / "dossier.pdf",
-        "markdown": out_dir / "dossier.md",
-        "json": out_dir / "results.json",
-    }
 
 
 def _safe(name: str) -> str:
     """A fixed file name made safe (user-given names go through :func:`robust.outputs.file_stems` first)."""
     return "".join(c if c.isalnum() or c in "-_" else "_" for c in name)
-
-
-def _pdf_with_figures(blocks, d, path: Path) -> None:
-    """Render the PDF; the figures are drawn again as vector graphics."""
-    render_pdf(blocks, [Figure(name, "", caption, mpl=make()) for name, caption, make in figure_plan(d)], path)

@@ -20,11 +20,12 @@ STYLES = ("-", "--", ":", "-.")
 plt.rcParams.update({"svg.hashsalt": "robust", "font.size": 9, "text.parse_math": False})  # names are text, never math
 
 
-def svg(fig: Figure) -> str:
+def svg(fig: Figure, *, close: bool = True) -> str:
     """SVG text of a figure without the creation date (stable across runs)."""
     buf = io.StringIO()
     fig.savefig(buf, format="svg", metadata={"Date": None, "Creator": "robust"}, bbox_inches="tight")
-    plt.close(fig)
+    if close:
+        plt.close(fig)
     text = buf.getvalue()
     return text[text.index("<svg") :]
 
@@ -59,10 +60,19 @@ def eigenvalue_map(eigs: dict[str, np.ndarray], requirements: dict[str, float]) 
             ok &= -X >= z * np.hypot(X, Y)
         if w is not None:
             ok &= np.hypot(X, Y) <= w
-        ax.contourf(X, Y, ok.astype(float), levels=[0.5, 1.5], colors=["#d9ead3"], alpha=0.8)
+        cs = ax.contourf(X, Y, ok.astype(float), levels=[0.5, 1.5], colors=["#d9ead3"], alpha=0.8)
+        cs.set_rasterized(True)
         ax.plot([], [], "s", color="#d9ead3", label="required region")
         for k, (name, e) in enumerate(eigs.items()):
-            ax.plot(e.real.ravel(), e.imag.ravel(), MARKERS[k % len(MARKERS)], ms=2.5, alpha=0.5, label=name)
+            ax.plot(
+                e.real.ravel(),
+                e.imag.ravel(),
+                MARKERS[k % len(MARKERS)],
+                ms=2.5,
+                alpha=0.5,
+                label=name,
+                rasterized=True,  # thousands of markers: a picture inside the SVG keeps the file small
+            )
         ax.axvline(0.0, color="k", lw=0.8)
         if a:
             ax.axvline(-a, color="k", ls="--", lw=0.8)
