@@ -21,7 +21,7 @@ from robust.case import Case, Study
 from robust.gains import GainSet
 from robust.linear import reduced_model
 from robust.progress import bar
-from robust.uncertainty import corners, plan_points
+from robust.uncertainty import corners, monte_carlo, plan_points
 
 Progress = Callable[[str], None]
 STABILITY = "closed_loop_stable"
@@ -120,16 +120,13 @@ def _varies(corner_values: np.ndarray, sample_values: np.ndarray, searched: Wors
     v = np.concatenate([corner_values, sample_values] + ([np.array([searched.value])] if searched else []))
     if np.all(np.isinf(v)) or v.size == 0:
         return False
-    return bool(np.ptp(v[np.isfinite(v)]) > 1e-9 * max(1.0, float(np.abs(v[np.isfinite(v)]).max()))) or bool(
+    return bool(np.ptp(v[np.isfinite(v)]) > 1e-6 * max(1.0, float(np.abs(v[np.isfinite(v)]).max()))) or bool(
         np.any(np.isinf(v)) and np.any(np.isfinite(v))
     )
 
 
-def _stability_verdict(case: Case, study: Study, decay: MetricSummary, at_samples: dict) -> Verdict:
+def _stability_verdict(study: Study, decay: MetricSummary, fails: int, n: int) -> Verdict:
     """Closed-loop stability of every model: always a requirement, whatever the case file asks."""
-    vals = at_samples["decay_rate"]
-    fails = int(np.sum(vals <= 0))
-    n = len(vals)
     interval = clopper_pearson(fails, n, study.confidence) if study.plan == "monte_carlo" and n else None
     return Verdict(
         requirement=STABILITY,
@@ -150,81 +147,198 @@ def _worst_index(metric: str, values: np.ndarray) -> int:
     return int(np.argmax(METRICS[metric].badness(values)))
 
 
-def _input_margins(case: Case, K: np.ndarray, points: np.ndarray, chunk: int = 50_000) -> tuple[InputMargin, ...]:
-    """Loop-at-a-time margins per wheel: nominal and worst over ``points``, in chunks (memory stays flat)."""
+CHUNK = 50_000  # samples evaluated and accumulated at a time: memory does not grow with the study size
 
-    def per_wheel(m, j: int) -> dict[str, np.ndarray]:
-        return {
-            "gain_margin_up_db": m.gain_margin_upper_db[:, j],
-            "gain_margin_down_db": -m.gain_margin_lower_db[:, j],
-            "phase_margin_deg": m.phase_margin_deg[:, j],
-            "delay_margin_ms": 1e3 * m.delay_margin_s[:, j],
-            "disk_margin": m.disk_margin[:, j],
-            "disk_gain_high_db": 20 * np.log10(m.disk_gain_high[:, j]),
-            "disk_phase_deg": m.disk_phase_deg[:, j],
-        }
 
-    nom = reduced_model(case.box.plant(case.box.nominal[None, :]))
-    lm_nom = loop_margins(nom.A, nom.B, K)
-    worst: list[dict[str, float]] = [{}, {}]
-    for start in range(0, len(points), chunk):
-        model = reduced_model(case.box.plant(points[start : start + chunk]))
-        lm = loop_margins(model.A, model.B, K)
-        for j in range(2):
-            for k, v in per_wheel(lm, j).items():
-                worst[j][k] = min(worst[j].get(k, np.inf), float(np.min(v)))
-    return tuple(
-        InputMargin(
-            wheel=wheel,
-            nominal={k: float(v[0]) for k, v in per_wheel(lm_nom, j).items()},
-            worst=worst[j],
+@dataclass(frozen=True)
+class SampleStream:
+    """The study's sample points, produced in chunks (Monte Carlo points are regenerated, never stored).
+
+    Monte Carlo samples come from fixed random blocks, so every chunking gives
+    the same points; other plans are built once (their sizes are budgeted).
+    """
+
+    case: Case
+    study: Study
+
+    @property
+    def count(self) -> int:
+        return int(self._points().shape[0]) if not self._streamed else int(self.study.samples)
+
+    @property
+    def _streamed(self) -> bool:
+        return self.study.plan == "monte_carlo" and bool(self.case.box.ranges)
+
+    def _points(self) -> np.ndarray:
+        st = self.study
+        return plan_points(self.case.box, st.plan, samples=st.samples, seed=st.seed, grid_points=st.grid_points)
+
+    def chunks(self, size: int = CHUNK):
+        """Yield ``(start, points)`` over the whole plan."""
+        if self._streamed:
+            n = self.count
+            for start in range(0, n, size):
+                yield start, monte_carlo(self.case.box, n, self.study.seed, start=start, stop=min(n, start + size))
+        else:
+            pts = self._points()
+            for start in range(0, pts.shape[0], size):
+                yield start, pts[start : start + size]
+
+    def points_at(self, index: np.ndarray) -> np.ndarray:
+        """The sample points at the given indices ``(m, k)``."""
+        index = np.asarray(index, dtype=int)
+        if not self._streamed:
+            return self._points()[index]
+        n = self.count
+        return np.array([monte_carlo(self.case.box, n, self.study.seed, start=i, stop=i + 1)[0] for i in index])
+
+
+_WHEEL_KEYS = (
+    "gain_margin_up_db",
+    "gain_margin_down_db",
+    "phase_margin_deg",
+    "delay_margin_ms",
+    "disk_margin",
+    "disk_gain_high_db",
+    "disk_phase_deg",
+)
+
+
+def _per_wheel(m, j: int) -> dict[str, np.ndarray]:
+    return {
+        "gain_margin_up_db": m.gain_margin_upper_db[:, j],
+        "gain_margin_down_db": -m.gain_margin_lower_db[:, j],
+        "phase_margin_deg": m.phase_margin_deg[:, j],
+        "delay_margin_ms": 1e3 * m.delay_margin_s[:, j],
+        "disk_margin": m.disk_margin[:, j],
+        "disk_gain_high_db": 20 * np.log10(m.disk_gain_high[:, j]),
+        "disk_phase_deg": m.disk_phase_deg[:, j],
+    }
+
+
+class _WheelMargins:
+    """Running worst loop-at-a-time margins per wheel input over chunks of points."""
+
+    def __init__(self) -> None:
+        self.worst: list[dict[str, float]] = [{}, {}]
+
+    def add(self, case: Case, K: np.ndarray, points: np.ndarray) -> None:
+        for start in range(0, len(points), 20_000):
+            model = reduced_model(case.box.plant(points[start : start + 20_000]))
+            lm = loop_margins(model.A, model.B, K)
+            for j in range(2):
+                for k, v in _per_wheel(lm, j).items():
+                    self.worst[j][k] = min(self.worst[j].get(k, np.inf), float(np.min(v)))
+
+    def result(self, case: Case, K: np.ndarray) -> tuple[InputMargin, ...]:
+        nom = reduced_model(case.box.plant(case.box.nominal[None, :]))
+        lm_nom = loop_margins(nom.A, nom.B, K)
+        return tuple(
+            InputMargin(
+                wheel=wheel,
+                nominal={k: float(v[0]) for k, v in _per_wheel(lm_nom, j).items()},
+                worst=self.worst[j],
+            )
+            for j, wheel in enumerate(("left", "right"))
         )
-        for j, wheel in enumerate(("left", "right"))
-    )
+
+
+def _requirement_pairs(case: Case) -> list[tuple[str, str, float]]:
+    """``(requirement key, metric, threshold)`` for every linear requirement of the case."""
+    return [
+        (key, name, threshold)
+        for key, threshold in case.requirements.items()
+        for name, m in METRICS.items()
+        if m.requirement == key
+    ]
+
+
+def _count_fails(m, vals: np.ndarray, threshold: float) -> int:
+    return int(np.sum(vals < threshold)) if m.kind == "min" else int(np.sum(vals > threshold))
 
 
 def check_gain(
     case: Case,
     gain: GainSet,
     study: Study,
-    points: np.ndarray,
+    stream: SampleStream,
     *,
     progress: Progress | None = None,
     advance: Callable[[int], None] | None = None,
 ) -> GainCheck:
-    """Check one gain set on the corners, the given sample points and (optionally) by search."""
+    """Check one gain set on the corners, the study's samples (in chunks) and (optionally) by search.
+
+    Worst values, their locations, failure counts and margins are exact
+    (float64, accumulated chunk by chunk); the per-sample values kept for the
+    percentiles are float32 (7 significant digits; percentiles are shown to 4).
+    """
     box, names, K = case.box, case.box.names, gain.K
     say = progress or (lambda _msg: None)
     step = advance or (lambda _n=1: None)
     nominal = evaluate(box, box.nominal[None, :], K)
     cpts = corners(box)
     at_corners = evaluate(box, cpts, K)
-    say(f"{gain.name}: {len(points)} samples")
-    at_samples = evaluate(
-        box, points, K, progress=lambda d, t: say(f"{gain.name}: samples {d}/{t}") if t > 20000 else None
-    )
+    n = stream.count
+    nc = len(cpts)
+    say(f"{gain.name}: {n} samples")
+    values = {name: np.empty(n, dtype=np.float32) for name in METRICS}
+    worst_idx = dict.fromkeys(METRICS, -1)
+    worst_val = dict.fromkeys(METRICS, np.nan)
+    # the 8 worst of corners and samples per metric (seeds of the search): (badness, position)
+    top = {}
+    for name, m in METRICS.items():
+        bad = m.badness(at_corners[name])
+        top[name] = (bad, np.arange(nc))
+    pairs = _requirement_pairs(case)
+    fails = {(key, name): 0 for key, name, _ in pairs}
+    unstable = 0
+    wheels = _WheelMargins()
+    wheels.add(case, K, cpts)
+    for start, pts in stream.chunks():
+        v = evaluate(box, pts, K, chunk=2000)
+        for name, m in METRICS.items():
+            vals = v[name]
+            values[name][start : start + len(vals)] = vals
+            i = int(np.argmax(m.badness(vals)))
+            if worst_idx[name] < 0 or m.worse(np.array(vals[i]), np.array(worst_val[name])):
+                worst_idx[name], worst_val[name] = start + i, float(vals[i])
+            b0, p0 = top[name]
+            b = np.concatenate([b0, m.badness(vals)])
+            p = np.concatenate([p0, nc + start + np.arange(len(vals))])
+            keep = np.lexsort((p, -b))[:8]
+            top[name] = (b[keep], p[keep])
+        for key, name, threshold in pairs:
+            fails[(key, name)] += _count_fails(METRICS[name], v[name], threshold)
+        unstable += int(np.sum(v["decay_rate"] <= 0))
+        wheels.add(case, K, pts)
+        if n > CHUNK:
+            say(f"{gain.name}: samples {min(n, start + len(pts))}/{n}")
     step(1)
     summaries = []
-    searched: dict[str, Worst] = {}
     for name, m in METRICS.items():
         ic = _worst_index(name, at_corners[name])
         wc = Worst(float(at_corners[name][ic]), _at(names, cpts[ic]), "corner")
         ws = None
-        if len(points):
-            i = _worst_index(name, at_samples[name])
-            ws = Worst(float(at_samples[name][i]), _at(names, points[i]), "sample")
+        if n:
+            ws = Worst(worst_val[name], _at(names, stream.points_at([worst_idx[name]])[0]), "sample")
         wsearch = None
         if study.search and names:
-            allv = np.concatenate([at_corners[name], at_samples[name]])
-            allp = np.concatenate([cpts, points])
-            order = np.argsort(-m.badness(allv), kind="stable")[:8]
-            if np.all(np.isinf(allv)) and m.kind == "min" and np.all(allv > 0):
-                wsearch = None  # unbounded everywhere sampled (e.g. no upper gain limit)
-            else:
+            b, pos = top[name]
+            is_corner = pos < nc
+            seeds = np.empty((len(pos), len(names)))
+            seeds[is_corner] = cpts[pos[is_corner]]
+            if (~is_corner).any():
+                seeds[~is_corner] = stream.points_at(pos[~is_corner] - nc)
+            everywhere_unbounded = (
+                m.kind == "min"
+                and np.all(np.isinf(at_corners[name]))
+                and np.all(at_corners[name] > 0)
+                and (n == 0 or bool(np.all(np.isposinf(values[name]))))
+            )
+            if not everywhere_unbounded:
                 say(f"{gain.name}: searching the box for the worst {name}")
-                r = search_worst(box, K, name, allp[order], seed=study.seed)
+                r = search_worst(box, K, name, seeds, seed=study.seed)
                 wsearch = Worst(r.value, _at(names, r.point), "search")
-                searched[name] = wsearch
         step(1)
         cands = [w for w in (wc, ws, wsearch) if w is not None]
         worst = cands[0]
@@ -242,47 +356,38 @@ def check_gain(
                 worst_sample=ws,
                 worst_search=wsearch,
                 worst=worst,
-                percentiles=percentiles(at_samples[name]) if len(points) else {},
-                varies=_varies(at_corners[name], at_samples[name], wsearch),
+                percentiles=percentiles(values[name]) if n else {},
+                varies=_varies(at_corners[name], values[name], wsearch),
             )
         )
-    verdicts = [_stability_verdict(case, study, {s.name: s for s in summaries}["decay_rate"], at_samples)]
     by_name = {s.name: s for s in summaries}
-    for key, threshold in case.requirements.items():
-        for name, m in METRICS.items():
-            if m.requirement != key:
-                continue
-            s = by_name[name]
-            vals = at_samples[name]
-            if m.kind == "min":
-                fails = int(np.sum(vals < threshold))
-                margin = s.worst.value - threshold
-            else:
-                fails = int(np.sum(vals > threshold))
-                margin = threshold - s.worst.value
-            n = len(vals)
-            interval = clopper_pearson(fails, n, study.confidence) if study.plan == "monte_carlo" and n else None
-            verdicts.append(
-                Verdict(
-                    requirement=key,
-                    metric=name,
-                    unit=m.unit,
-                    threshold=threshold,
-                    worst=s.worst.value,
-                    passed=bool(margin >= 0),
-                    margin=float(margin),
-                    failures=fails,
-                    samples=n,
-                    failure_fraction=fails / n if n else 0.0,
-                    failure_interval=interval,
-                )
+    verdicts = [_stability_verdict(study, by_name["decay_rate"], unstable, n)]
+    for key, name, threshold in pairs:
+        m = METRICS[name]
+        s = by_name[name]
+        margin = s.worst.value - threshold if m.kind == "min" else threshold - s.worst.value
+        f = fails[(key, name)]
+        interval = clopper_pearson(f, n, study.confidence) if study.plan == "monte_carlo" and n else None
+        verdicts.append(
+            Verdict(
+                requirement=key,
+                metric=name,
+                unit=m.unit,
+                threshold=threshold,
+                worst=s.worst.value,
+                passed=bool(margin >= 0),
+                margin=float(margin),
+                failures=f,
+                samples=n,
+                failure_fraction=f / n if n else 0.0,
+                failure_interval=interval,
             )
-    inputs = _input_margins(case, K, np.concatenate([cpts, points]))
+        )
     return GainCheck(
         gain=gain,
         summaries=tuple(summaries),
         verdicts=tuple(verdicts),
-        inputs=inputs,
+        inputs=wheels.result(case, K),
         passed=all(v.passed for v in verdicts),
         corner_points=cpts,
         corner_values=at_corners,
@@ -300,16 +405,17 @@ def run_check(
     study = study or case.study
     if not gains:
         raise ValueError("no gain set to check: add [gains.NAME] to the case or pass a gain file")
-    points = plan_points(case.box, study.plan, samples=study.samples, seed=study.seed, grid_points=study.grid_points)
+    stream = SampleStream(case, study)
+    n = stream.count
     total = len(gains) * (1 + len(METRICS))
-    with bar(progress, total, f"linear check of {len(gains)} gain sets on {len(points)} samples") as advance:
-        checks = tuple(check_gain(case, g, study, points, progress=progress, advance=advance) for g in gains)
+    with bar(progress, total, f"linear check of {len(gains)} gain sets on {n} samples") as advance:
+        checks = tuple(check_gain(case, g, study, stream, progress=progress, advance=advance) for g in gains)
     return CheckResult(
         title=case.title,
         case_sha256=case.sha256,
         study=study,
         parameter_names=case.box.names,
-        samples=int(points.shape[0]),
+        samples=n,
         samples_for_1pct_at_confidence=samples_needed(0.01, study.confidence),
         gains=checks,
         passed=all(c.passed for c in checks),
