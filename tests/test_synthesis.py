@@ -167,3 +167,18 @@ def test_lmi_gain_passes_where_placement_fails(tmp_path, capsys, case_file):
     assert g.provenance["case_sha256"] == data["check"]["case_sha256"]
     assert g.provenance["verdict"]["status"] == verdicts["robust_lmi"]["status"]
     assert "not a safety case" in g.provenance["caution"]
+
+
+def test_a_solver_limit_is_never_reported_as_infeasible(moment_result, monkeypatch):
+    """Starved of iterations, the first solve stops at its limit; the request (known to certify) must then
+    be solved with escalated effort, never answered "infeasible" (our own rule: a limit proves nothing)."""
+    import robust.synthesis.lmi as lmi
+
+    poly, spec, _r = moment_result
+    monkeypatch.setattr(lmi, "SOLVER_OPTIONS", {"CLARABEL": {"max_iter": 2}, "SCS": {"max_iters": 5}})
+    said = []
+    res = synthesize(poly, replace(spec, decay_rate=0.5, objective="gain"), progress=said.append)
+    assert res.certificate.passed
+    assert any("more effort" in s for s in said)
+    assert not lmi.proved_infeasible("CLARABEL: user_limit") and lmi.proved_infeasible("CLARABEL: infeasible")
+    assert not lmi.proved_infeasible("CLARABEL: infeasible_inaccurate")

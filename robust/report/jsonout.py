@@ -23,6 +23,8 @@ def to_plain(value: Any) -> Any:
     if isinstance(value, (list, tuple)):
         return [to_plain(v) for v in value]
     if isinstance(value, np.ndarray):
+        if value.dtype.kind in "biu" or (value.dtype.kind == "f" and bool(np.all(np.isfinite(value)))):
+            return value.tolist()  # plain Python numbers already: no per-element conversion needed
         return to_plain(value.tolist())
     if isinstance(value, (np.bool_, bool)):
         return bool(value)

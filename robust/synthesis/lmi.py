@@ -47,6 +47,18 @@ SOLVER_OPTIONS = {
     "CLARABEL": {"max_iter": 200, "time_limit": 20.0},
     "SCS": {"max_iters": 20000, "time_limit_secs": 20.0},
 }
+# second try when the first stops without a conclusion (a limit or an inaccurate point is never a proof)
+SOLVER_OPTIONS_ESCALATED = {
+    "CLARABEL": {"max_iter": 2000, "time_limit": 300.0},
+    "SCS": {"max_iters": 200000, "time_limit_secs": 300.0},
+}
+
+
+def proved_infeasible(status: str) -> bool:
+    """True only when a solver proved infeasibility (not for limits, failures or inaccurate points)."""
+    return "infeasible" in str(status) and "inaccurate" not in str(status)
+
+
 DEFAULT_STATE_SCALE = np.array([1.0, 1.0, 0.1, 1.0])  # m/s, rad/s, rad, rad/s: typical magnitudes
 
 
@@ -225,13 +237,14 @@ def explain_status(status: str) -> str:
     return "; ".join(out)
 
 
-def _solve(prob: cp.Problem):
+def _solve(prob: cp.Problem, effort: int = 0):
     last = None
+    options = SOLVER_OPTIONS if effort == 0 else SOLVER_OPTIONS_ESCALATED
     for name in SOLVERS:
         try:
             with warnings.catch_warnings():  # the status is handled below and the certificate re-checked
                 warnings.simplefilter("ignore", UserWarning)
-                prob.solve(solver=name, **SOLVER_OPTIONS.get(name, {}))
+                prob.solve(solver=name, **options.get(name, {}))
         except cp.error.SolverError as exc:
             last = f"{name}: {exc}"
             continue
@@ -243,7 +256,7 @@ def _solve(prob: cp.Problem):
     return None, last or "no solver ran"
 
 
-def _common(poly: Polytope, spec: Spec, alpha: float, delta: float):
+def _common(poly: Polytope, spec: Spec, alpha: float, delta: float, effort: int = 0):
     if spec.max_frequency is not None and not disk_supported(poly):
         spec = replace(spec, max_frequency=None)
     E, A, B = _scaled(poly, spec)
@@ -305,7 +318,7 @@ def _common(poly: Polytope, spec: Spec, alpha: float, delta: float):
     else:
         cons.append(X1 >> np.eye(n) * (delta if extra else 1.0))
     prob = cp.Problem(cp.Minimize(obj), cons)
-    solver, status = _solve(prob)
+    solver, status = _solve(prob, effort)
     if solver is None:
         return None, status
     X1v, Yv = X1.value, Y.value
@@ -368,7 +381,7 @@ def _check_common(poly, spec, alpha, X1, Y, slacks, delta) -> Certificate:
     )
 
 
-def _pdlf(poly: Polytope, spec: Spec, alpha: float, delta: float, eps: float):
+def _pdlf(poly: Polytope, spec: Spec, alpha: float, delta: float, eps: float, effort: int = 0):
     if np.any(np.abs(poly.E - np.eye(4)) > 1e-12):
         raise ValueError("the parameter-dependent Lyapunov variant needs E = I (route 'sampled_hull')")
     if spec.damping is not None or spec.max_frequency is not None or spec.objective == "cost":
@@ -402,7 +415,7 @@ def _pdlf(poly: Polytope, spec: Spec, alpha: float, delta: float, eps: float):
                     _sym(cp.bmat([[lim * np.ones((1, 1)), Y[j : j + 1, :]], [Y[j : j + 1, :].T, _he(G) - Xs[i]]])) >> 0
                 )
     prob = cp.Problem(cp.Minimize(kappa), cons)
-    solver, status = _solve(prob)
+    solver, status = _solve(prob, effort)
     if solver is None:
         return None, status
     Gv, Yv = G.value, Y.value
@@ -435,24 +448,44 @@ def _pdlf(poly: Polytope, spec: Spec, alpha: float, delta: float, eps: float):
 EPSILONS = (0.03, 0.1, 0.3, 1.0)
 
 
-def _attempt(poly, spec, alpha, delta, say=None):
-    """One solve at decay rate ``alpha``; returns (result or None, status text, solves)."""
-    if say is not None:
-        say(f"LMI solve at decay rate {alpha:.4g} 1/s on {poly.vertices} vertices")
+def _attempt_once(poly, spec, alpha, delta, effort):
     if spec.lyapunov == "common":
-        res, status = _common(poly, spec, alpha, delta)
+        res, status = _common(poly, spec, alpha, delta, effort)
         ok = res is not None and res["certificate"].passed
+        if res is not None and not ok:
+            status = f"{status}; the returned point failed the numpy certificate check"
         return (res if ok else None), status, 1
     best = None
     last = "infeasible"
     count = 0
     for eps in EPSILONS:
-        res, status = _pdlf(poly, spec, alpha, delta, eps)
+        res, status = _pdlf(poly, spec, alpha, delta, eps, effort)
         count += 1
         last = status
         if res is not None and res["certificate"].passed and (best is None or res["value"] < best["value"]):
             best = dict(res, epsilon=eps)
     return best, last, count
+
+
+def _attempt(poly, spec, alpha, delta, say=None):
+    """One solve at decay rate ``alpha``; returns (result or None, status text, solves).
+
+    When the first solve ends without a conclusion (an iteration or time
+    limit, an inaccurate point, a point that fails the certificate check),
+    the solve is repeated once with ten times the effort before the rate is
+    counted as not certifiable; the status then says which it was.
+    """
+    if say is not None:
+        say(f"LMI solve at decay rate {alpha:.4g} 1/s on {poly.vertices} vertices")
+    res, status, count = _attempt_once(poly, spec, alpha, delta, 0)
+    if res is None and not proved_infeasible(status):
+        if say is not None:
+            say(
+                f"no conclusion at decay rate {alpha:.4g} 1/s ({explain_status(status)}); trying again with more effort"
+            )
+        res, status, more = _attempt_once(poly, spec, alpha, delta, 1)
+        count += more
+    return res, status, count
 
 
 def _bisect(poly, spec, lo: float, hi: float, delta: float, steps: int, say=None):
@@ -512,10 +545,18 @@ def synthesize(
                 parts.append(f"natural frequency <= {spec.max_frequency:g} rad/s")
             if spec.torque_limit is not None:
                 parts.append(f"wheel torque <= {spec.torque_limit:g} N m for the stated initial states")
+            if proved_infeasible(st0):
+                raise Infeasible(
+                    f"no gain could be certified for {', '.join(parts)} over this polytope "
+                    f"({poly.route}, {poly.vertices} vertices, {spec.lyapunov} Lyapunov matrix; "
+                    f"{explain_status(st0)}). Relax the damping, frequency or torque request, narrow the ranges, "
+                    "or try the other route."
+                )
             raise Infeasible(
-                f"no gain could be certified for {', '.join(parts)} over this polytope "
-                f"({poly.route}, {poly.vertices} vertices, {spec.lyapunov} Lyapunov matrix; {explain_status(st0)}). "
-                "Relax the damping, frequency or torque request, narrow the ranges, or try the other route."
+                f"the LMIs for {', '.join(parts)} over this polytope ({poly.route}, {poly.vertices} vertices, "
+                f"{spec.lyapunov} Lyapunov matrix) were NOT SOLVED, even with escalated effort: "
+                f"{explain_status(st0)}. This is not a proof that no gain exists; narrow the ranges or try the "
+                "other route."
             )
         # grow from below: the feasible interval is usually far below an infeasible request
         lo, hi = 0.0, None
