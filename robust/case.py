@@ -92,6 +92,7 @@ class Case:
     manoeuvres: tuple[Manoeuvre, ...] = ()
     synthesis: dict = field(default_factory=dict)
     default_manoeuvres: bool = False
+    tuning: dict = field(default_factory=dict)
 
     @property
     def vehicle(self) -> Vehicle:
@@ -112,6 +113,7 @@ TOP_KEYS = (
     "controller",
     "manoeuvres",
     "synthesis",
+    "tuning",
 )
 SYNTHESIS_KEYS = {
     "name": ("text", None),
@@ -391,7 +393,38 @@ def parse_case(text: str, *, source: str = "<text>") -> Case:
         manoeuvres=manoeuvres,
         synthesis=_synthesis(doc),
         default_manoeuvres=defaults,
+        tuning=_tuning(doc),
     )
+
+
+def _tuning(doc: dict) -> dict:
+    """``[tuning]``: ask the dossier for a tuned gain (``name``, ``rounds``, ``evaluations``, ``starts``)."""
+    tt = _table(doc, "tuning", "", required=False)
+    if "tuning" not in doc:
+        return {}
+    _check_keys(tt, ["name", "rounds", "evaluations", "starts"], "tuning")
+    out: dict = {"name": _text(tt, "name", "tuning", default="tuned")}
+    from robust.outputs import OutputError, check_name
+
+    try:
+        check_name(out["name"], "tuning.name")
+    except OutputError as exc:
+        raise CaseError(str(exc)) from None
+    out["rounds"] = _integer(tt, "rounds", "tuning", default=3, low=1)
+    out["evaluations"] = _integer(tt, "evaluations", "tuning", default=150, low=10)
+    if out["rounds"] > 20:
+        raise CaseError(f"'tuning.rounds': expected at most 20, got {out['rounds']}")
+    if out["evaluations"] > 5000:
+        raise CaseError(f"'tuning.evaluations': expected at most 5000, got {out['evaluations']}")
+    starts = tt.get("starts", [])
+    if not isinstance(starts, list) or not all(isinstance(x, str) for x in starts):
+        raise CaseError(f"'tuning.starts': expected a list of gain set names, got {starts!r}")
+    names = set(_table(doc, "gains", "", required=False))
+    unknown = [x for x in starts if x not in names]
+    if unknown:
+        raise CaseError(f"'tuning.starts': unknown gain set {unknown[0]!r}; the case defines: {', '.join(names)}")
+    out["starts"] = list(starts)
+    return out
 
 
 def default_manoeuvres(vehicle: Vehicle, controller: Controller) -> tuple[Manoeuvre, ...]:

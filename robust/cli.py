@@ -131,6 +131,51 @@ def _synthesize(args: argparse.Namespace, progress) -> int:
     return 0 if d.assessment.passed else 1
 
 
+def _tune(args: argparse.Namespace, progress) -> int:
+    from pathlib import Path
+
+    from robust.assess import assess
+    from robust.case import CaseError, load_case
+    from robust.design import CAUTION
+    from robust.gains import GainSet, write_gain_file
+    from robust.outputs import check_name, plan_gain_file
+    from robust.report.jsonout import dumps
+    from robust.report.text import assessment_text
+    from robust.synthesis.tuning import tune
+
+    case = load_case(args.case)
+    if not case.box.ranges:
+        raise CaseError(f"{args.case}: no [ranges]: nothing to make robust (use a nominal design)")
+    name = check_name(args.name, "--name") if args.name else case.tuning.get("name", "tuned")
+    target = plan_gain_file(args.out or Path("gains") / f"{name}.toml", protect=[args.case])
+    starts = _gain_sets(case, args.gain or case.tuning.get("starts") or None, args.gain_file)
+    if any(g.name == name for g in starts):
+        raise CaseError(f"the tuned gain's name {name!r} is also a starting gain set; choose another with --name")
+    rounds = args.rounds or case.tuning.get("rounds", 3)
+    evaluations = args.evaluations or case.tuning.get("evaluations", 150)
+    r = tune(case, starts, name=name, outer_iterations=rounds, evaluations=evaluations, progress=progress)
+    a = assess(case, [r.gain, *starts], progress=progress)
+    v = a.verdicts[0]
+    verdict = {
+        "status": v.status,
+        "covered": "; ".join(v.covered),
+        "failing": ", ".join(v.failing) or "none",
+        "not_evaluated": ", ".join(v.not_evaluated) or "none",
+    }
+    gain = GainSet(r.gain.name, r.gain.K, r.gain.origin, r.gain.provenance | {"caution": CAUTION, "verdict": verdict})
+    write_gain_file(target.path, gain)
+    progress(f"gain written to {target.path}")
+    if args.json:
+        _emit(dumps({"tuning": r, "check": a.check, "time": a.time, "verdicts": a.verdicts}))
+    else:
+        head = (
+            f"Robust tuning: {r.iterations} rounds, {r.scenarios} scenario models, smallest normalised margin on "
+            f"the scenarios {r.score:.3g}; gain written to {target.path}\n\n"
+        )
+        _emit(head + assessment_text(case, a, view="compare"))
+    return 0 if v.passed else 1
+
+
 def _dossier(args: argparse.Namespace, progress) -> int:
     from pathlib import Path
 
@@ -251,6 +296,25 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--quiet", action="store_true", help="no progress messages")
     p.add_argument("--json", action="store_true", help="print JSON instead of text")
     p.set_defaults(func=_synthesize)
+
+    p = sub.add_parser(
+        "tune",
+        help="robust tuning: a mirror-symmetric gain optimised against every requirement over the box",
+    )
+    _gain_options(
+        p,
+        case_help="case gain set to start from (repeatable; default [tuning] starts or all)",
+        file_help="gain file to start from as well (repeatable)",
+    )
+    p.add_argument(
+        "--name", help="name of the tuned gain set: letters, digits, '-', '_' (default: [tuning] or 'tuned')"
+    )
+    p.add_argument("--out", metavar="PATH", help="gain file to write (default gains/NAME.toml)")
+    p.add_argument("--rounds", type=_positive_int, help="optimise-then-check rounds (default 3)")
+    p.add_argument("--evaluations", type=_positive_int, help="optimiser evaluations per start and round (default 150)")
+    p.add_argument("--quiet", action="store_true", help="no progress messages")
+    p.add_argument("--json", action="store_true", help="print JSON instead of text")
+    p.set_defaults(func=_tune)
 
     p = sub.add_parser(
         "dossier",

@@ -42,6 +42,7 @@ class DossierData:
     time: TimeCheckResult | None
     verdicts: tuple
     design: object | None
+    tuning: object | None
     design_error: str | None
     eigenvalues: dict[str, np.ndarray]
     sample_values: dict[str, dict[str, np.ndarray]]
@@ -95,6 +96,21 @@ def run_dossier(
             gains = [undated, *gains]
         except (Infeasible, ValueError) as exc:
             design_error = str(exc)
+    tuning = None
+    if case.tuning and case.box.ranges:
+        from robust.synthesis.tuning import tune
+
+        starts = [g for g in gains if not case.tuning["starts"] or g.name in case.tuning["starts"]]
+        say("robust tuning")
+        tuning = tune(
+            case,
+            starts,
+            name=case.tuning["name"],
+            outer_iterations=case.tuning["rounds"],
+            evaluations=case.tuning["evaluations"],
+            progress=progress,
+        )
+        gains = [tuning.gain, *gains]
     if not gains:
         raise ValueError("the dossier needs at least one gain set: add [gains.NAME], [synthesis] or a gain file")
     a = assess(case, gains, design=design, progress=progress)
@@ -124,6 +140,7 @@ def run_dossier(
         time=time,
         verdicts=a.verdicts,
         design=design,
+        tuning=tuning,
         design_error=design_error,
         eigenvalues=eigs,
         sample_values=values,
