@@ -76,9 +76,9 @@ def _check(args: argparse.Namespace, progress) -> int:
     case = load_case(args.case)
     gains = _gain_sets(case, args.gain, args.gain_file)
     study = _study(case, args)
-    a = assess(case, gains, study=study, time=not args.linear_only, progress=progress)
+    a = assess(case, gains, study=study, time=not args.linear_only, certify=args.certify, progress=progress)
     if args.json:
-        _emit(dumps({"check": a.check, "time": a.time, "verdicts": a.verdicts}))
+        _emit(dumps({"check": a.check, "time": a.time, "verdicts": a.verdicts, "certificates": a.certificates}))
     else:
         _emit(assessment_text(case, a, view="compare" if args.compare else "linear"))
     return 0 if a.passed else 1
@@ -263,6 +263,11 @@ def build_parser() -> argparse.ArgumentParser:
         "--linear-only",
         action="store_true",
         help="skip the time-domain check (the verdict is then INCOMPLETE, never PASS)",
+    )
+    p.add_argument(
+        "--certify",
+        action="store_true",
+        help="also certify each gain's decay rate with LMIs on the rigorous polytope (slower)",
     )
     p.add_argument("--compare", action="store_true", help="one column per gain set instead of one block each")
     p.add_argument("--json", action="store_true", help="print JSON instead of text")

@@ -136,6 +136,8 @@ def certified_requirements(case: Case, design) -> dict[str, dict[str, float]]:
     if not cert.passed or not design.polytope.rigorous:
         return {}
     out = {STABILITY: design.synthesis.decay_rate}
+    if design.synthesis.decay_rate <= 0:
+        out = {}
     want = case.requirements.get("min_decay_rate_per_s")
     if want is not None and design.synthesis.decay_rate >= want:
         out["min_decay_rate_per_s"] = design.synthesis.decay_rate
@@ -250,10 +252,21 @@ def overall_verdict(
     )
 
 
-def verdicts_for(case: Case, check, time, *, design=None, linear_why: str = "", time_why: str = "") -> tuple:
+def verdicts_for(
+    case: Case, check, time, *, design=None, certificates=None, linear_why: str = "", time_why: str = ""
+) -> tuple:
     """The overall verdict of every gain set of a run (``check``/``time`` results may be ``None``)."""
     names = [g.gain.name for g in (check.gains if check is not None else time.gains)]
     cert = certified_requirements(case, design)
+    want = case.requirements.get("min_decay_rate_per_s")
+    for name, c in (certificates or {}).items():
+        if c.decay_rate is None or c.certificate is None or not c.certificate.passed:
+            continue
+        mine = dict(cert.get(name, {}))
+        mine[STABILITY] = c.decay_rate
+        if want is not None and c.decay_rate >= want:
+            mine["min_decay_rate_per_s"] = c.decay_rate
+        cert[name] = mine
     out = []
     for i, name in enumerate(names):
         out.append(

@@ -182,3 +182,45 @@ def test_a_solver_limit_is_never_reported_as_infeasible(moment_result, monkeypat
     assert any("more effort" in s for s in said)
     assert not lmi.proved_infeasible("CLARABEL: user_limit") and lmi.proved_infeasible("CLARABEL: infeasible")
     assert not lmi.proved_infeasible("CLARABEL: infeasible_inaccurate")
+
+
+def test_fixed_gain_certificate_agrees_with_the_synthesis_and_never_exceeds_the_samples():
+    """Quadratic stability of the closed-loop polytope for a given gain (Boyd, El Ghaoui, Feron and
+    Balakrishnan 1994, ch. 5): for the LMI gain, the same LMIs with the gain fixed certify at least the
+    synthesis's decay rate (to the bisection's resolution), and never more than the worst decay rate
+    found on samples of the box (the polytope contains every model)."""
+    from pathlib import Path
+
+    from robust.analysis.metrics import evaluate
+    from robust.case import load_case
+    from robust.design import design, make_spec
+    from robust.synthesis.lmi import certify_gain
+    from robust.uncertainty import corners, monte_carlo
+
+    case = load_case(Path(__file__).resolve().parent / "data" / "small_cart.toml")
+    d = design(case, assess_gains=False)
+    spec, _ = make_spec(case)
+    pts = np.concatenate([corners(case.box), monte_carlo(case.box, 500, seed=11)])
+    sampled = float(evaluate(case.box, pts, d.gain.K, names=("decay_rate",))["decay_rate"].min())
+    c = certify_gain(d.polytope, d.gain.K, input_scale=spec.input_scale, upper=sampled, steps=6)
+    assert c.certificate is not None and c.certificate.passed
+    assert c.decay_rate >= d.synthesis.decay_rate - c.resolution
+    assert c.decay_rate <= sampled
+    # a destabilising gain cannot be certified stable
+    bad = d.gain.K.copy()
+    bad[:, 2:] *= -1
+    assert certify_gain(d.polytope, bad, input_scale=spec.input_scale, upper=1.0, steps=2).decay_rate is None
+
+
+def test_check_certify_marks_evidence_certified(capsys):
+    import json
+    from pathlib import Path
+
+    from robust.cli import main
+
+    small = Path(__file__).resolve().parent / "data" / "small_cart.toml"
+    main(["check", str(small), "--certify", "--linear-only", "--quiet", "--json", "--samples", "100"])
+    data = json.loads(capsys.readouterr().out)
+    cert = data["certificates"]["placed"]
+    stab = next(o for o in data["verdicts"][0]["outcomes"] if o["key"] == "closed_loop_stable")
+    assert (stab["evidence"] == "certified") == (cert["decay_rate"] is not None)

@@ -432,6 +432,19 @@ def assessment_text(case, a, *, view: str = "linear") -> str:
                 out += linear_block(a.check.gains[i], a.check)
             if view == "time" and a.time is not None:
                 out += time_block(a.time.gains[i], a.time)
+    if a.certificates is not None:
+        out += ["", "Certified decay rate (rigorous polytope of the box, common Lyapunov matrix, fixed gain)"]
+        rows = []
+        for i, v in enumerate(a.verdicts):
+            c = a.certificates.get(v.gain)
+            sampled = next(s.worst.value for s in a.check.gains[i].summaries if s.name == "decay_rate")
+            if c is None:
+                rows.append([v.gain, "not attempted (unstable in the box)", value_text(sampled)])
+            elif c.decay_rate is None:
+                rows.append([v.gain, "stability not certified", value_text(sampled)])
+            else:
+                rows.append([v.gain, f"{fmt(c.decay_rate)} (to {fmt(c.resolution, 2)})", value_text(sampled)])
+        out.append(table(["gain set", "certified [1/s]", "sampled worst [1/s]"], rows))
     out += ["", "=" * 78]
     for v in a.verdicts:
         out += verdict_block(v)
