@@ -462,6 +462,15 @@ def summary_lines(verdicts) -> list[str]:
     return out
 
 
+def _column_groups(headers: list[str], rows: list[list[str]], per: int = 3) -> list[str]:
+    """A wide side-by-side table as several tables of at most ``per`` value columns (screens fit 100 columns)."""
+    out = []
+    for start in range(1, len(headers), per):
+        cols = [0, *range(start, min(start + per, len(headers)))]
+        out.append(table([headers[c] for c in cols], [[r[c] for c in cols] for r in rows]))
+    return ["\n\n".join(out)]
+
+
 def compare_text(result) -> str:
     """Gain sets side by side: one column per gain set, rows = metrics (worst case over the box)."""
     from robust.verdict import LABELS
@@ -475,7 +484,7 @@ def compare_text(result) -> str:
         cells = [value_text(v) + (" (worst)" if v == worst and len(set(values)) > 1 else "") for v in values]
         rows.append([f"{METRIC_LABELS.get(s.name, s.name)} [{s.unit}]", *cells])
     out = ["Worst case over the box, side by side ('worst' marks the worst gain set)"]
-    out.append(table(["metric", *names], rows))
+    out += _column_groups(["metric", *names], rows)
     keys = list(dict.fromkeys((v.requirement, v.metric) for g in result.gains for v in g.verdicts))
     vrows = []
     for req, metric in keys:
@@ -488,7 +497,7 @@ def compare_text(result) -> str:
             cells.append("-" if v is None else ("pass" if v.passed else "FAIL") + f" ({value_text(v.margin)})")
         vrows.append([label, *cells])
     out += ["", "Linear verdicts (margin in brackets; negative fails)"]
-    out.append(table(["requirement", *names], vrows))
+    out += _column_groups(["requirement", *names], vrows)
     return "\n".join(out) + "\n"
 
 
