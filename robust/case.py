@@ -736,6 +736,15 @@ def resolve_gain(case: Case, spec: GainSpec):
     nominal = reduced_model(plant_batch(case.vehicle))
     A, B = nominal.A[0], nominal.B[0]
     prov = {"case_sha256": case.sha256, "method": spec.method}
+    if spec.method in ("poles", "lqr"):
+        from robust.linear import controllability_rank
+
+        rank = int(np.atleast_1d(controllability_rank(nominal.A, nominal.B))[0])
+        if rank < 4:  # a fault of the vehicle, not of the gain set: say so
+            raise CaseError(
+                f"vehicle: the nominal reduced model is controllable only in rank {rank} of 4, so no gain can be "
+                f"designed on it ('{path}' needs one); check the [vehicle.*] values"
+            )
     try:
         if spec.method == "matrix":
             return GainSet(spec.name, np.array(spec.data["matrix"]), "matrix", prov)

@@ -181,3 +181,20 @@ def test_unwritable_standard_output_is_a_message(tmp_path):
         )
     assert r.returncode == 2
     assert "Traceback" not in r.stderr and "standard output" in r.stderr
+
+
+def test_names_and_titles_are_text_never_markup_or_math(tmp_path):
+    """A gain name with mathtext and a title with HTML are shown as text: the dossier is written, the
+    Markdown carries no raw tag, and the figure files get safe, distinct names."""
+    text = CASE.read_text()
+    text = text.replace('title = "Small test cart (test data)"', 'title = "Cart <script>alert(1)</script>"')
+    text = text.replace("[gains.placed]", '[gains."$\\\\frac{1}{2}$ placed/x"]')
+    text = text.replace("[synthesis]", "[unused_synthesis]").split("[unused_synthesis]")[0]
+    case = tmp_path / "odd.toml"
+    case.write_text(text)
+    out = tmp_path / "d"
+    assert main(["dossier", str(case), "--out", str(out), "--quiet"]) == 0
+    md = (out / "dossier.md").read_text()
+    assert "<script>" not in md and "&lt;script&gt;" in md
+    names = [p.name for p in (out / "figures").iterdir()]
+    assert names and all(all(c.isalnum() or c in "-_." for c in n) for n in names)
