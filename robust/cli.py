@@ -156,12 +156,7 @@ def _tune(args: argparse.Namespace, progress) -> int:
     r = tune(case, starts, name=name, outer_iterations=rounds, evaluations=evaluations, progress=progress)
     a = assess(case, [r.gain, *starts], progress=progress)
     v = a.verdicts[0]
-    verdict = {
-        "status": v.status,
-        "covered": "; ".join(v.covered),
-        "failing": ", ".join(v.failing) or "none",
-        "not_evaluated": ", ".join(v.not_evaluated) or "none",
-    }
+    verdict = v.as_record()
     gain = GainSet(r.gain.name, r.gain.K, r.gain.origin, r.gain.provenance | {"caution": CAUTION, "verdict": verdict})
     write_gain_file(target.path, gain)
     progress(f"gain written to {target.path}")

@@ -203,11 +203,6 @@ def design(
     say(f"assessing '{name}' over the box")
     a = assess(case, [gain, *(compare_with or [])], design=result, progress=progress)
     v = a.verdicts[0]
-    verdict = {
-        "status": v.status,
-        "covered": "; ".join(v.covered),
-        "failing": ", ".join(v.failing) or "none",
-        "not_evaluated": ", ".join(v.not_evaluated) or "none",
-    }
+    verdict = v.as_record()
     gain = GainSet(name, res.K, gain.origin, provenance | {"verdict": verdict})
     return DesignResult(polytope=poly, synthesis=res, gain=gain, check=a.check, not_imposed=not_imposed, assessment=a)

@@ -102,6 +102,15 @@ class OverallVerdict:
     def passed(self) -> bool:
         return self.status == "PASS"
 
+    def as_record(self) -> dict[str, str]:
+        """The verdict as a gain file records it: status, what it covered, what fails, what was not evaluated."""
+        return {
+            "status": self.status,
+            "covered": "; ".join(self.covered),
+            "failing": ", ".join(self.failing) or "none",
+            "not_evaluated": ", ".join(self.not_evaluated) or "none",
+        }
+
     def line(self) -> str:
         """One line for a screen: status, what fails, what was not evaluated."""
         text = f"{self.gain}: {self.status}"
