@@ -472,18 +472,20 @@ def _attempt_once(poly, spec, alpha, delta, effort):
     return best, last, count
 
 
-def _attempt(poly, spec, alpha, delta, say=None):
+def _attempt(poly, spec, alpha, delta, say=None, escalate: bool = True):
     """One solve at decay rate ``alpha``; returns (result or None, status text, solves).
 
     When the first solve ends without a conclusion (an iteration or time
     limit, an inaccurate point, a point that fails the certificate check),
     the solve is repeated once with ten times the effort before the rate is
-    counted as not certifiable; the status then says which it was.
+    counted as not certifiable; the status then says which it was.  Searches
+    (bisection, growth) pass ``escalate=False``: a failure there only makes
+    the reported rate smaller, which stays certified.
     """
     if say is not None:
         say(f"LMI solve at decay rate {alpha:.4g} 1/s on {poly.vertices} vertices")
     res, status, count = _attempt_once(poly, spec, alpha, delta, 0)
-    if res is None and not proved_infeasible(status):
+    if res is None and escalate and not proved_infeasible(status):
         if say is not None:
             say(
                 f"no conclusion at decay rate {alpha:.4g} 1/s ({explain_status(status)}); trying again with more effort"
@@ -502,7 +504,7 @@ def _bisect(poly, spec, lo: float, hi: float, delta: float, steps: int, say=None
     solves = 0
     for _ in range(steps):
         mid = 0.5 * (lo + hi)
-        r, _s, c = _attempt(poly, spec, mid, delta, say)
+        r, _s, c = _attempt(poly, spec, mid, delta, say, escalate=False)
         solves += c
         if r is not None:
             lo, best = mid, r
@@ -567,7 +569,7 @@ def synthesize(
         lo, hi = 0.0, None
         trial = min(0.25, spec.decay_rate / 2)
         while trial < spec.decay_rate:
-            r, _s, c = _attempt(poly, spec, trial, delta, say)
+            r, _s, c = _attempt(poly, spec, trial, delta, say, escalate=False)
             solves += c
             if r is None:
                 hi = trial
@@ -587,7 +589,7 @@ def synthesize(
     if spec.objective == "decay":
         lo, hi = alpha, max(2.0 * alpha, 1.0)
         while True:  # grow the bracket (up to 64 1/s: faster is beyond any drive)
-            r, _s, c = _attempt(poly, spec, hi, delta, say)
+            r, _s, c = _attempt(poly, spec, hi, delta, say, escalate=False)
             solves += c
             if r is None or hi >= 64.0:
                 break
