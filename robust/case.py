@@ -730,7 +730,7 @@ def resolve_gain(case: Case, spec: GainSpec):
     """
     from robust.gains import GainSet, read_gain_file
     from robust.linear import reduced_model
-    from robust.synthesis.nominal import bryson_from_keys, lqr, place
+    from robust.synthesis.nominal import bryson_from_keys, lqr, place_symmetric
 
     path = f"gains.{spec.name}"
     nominal = reduced_model(plant_batch(case.vehicle))
@@ -752,11 +752,12 @@ def resolve_gain(case: Case, spec: GainSpec):
             poles = list(spec.data["poles"])
             for re, im in spec.data["complex_poles"]:
                 poles += [complex(re, im), complex(re, -im)]
-            K = place(A, B, np.array(poles))
+            K = place_symmetric(A, B, np.array(poles))
             prov["poles"] = [float(p) for p in spec.data["poles"]]
+            prov["structure"] = "mirror-symmetric: slowest real pole on the yaw loop, the others on speed and pitch"
             if spec.data["complex_poles"]:
                 prov["complex_poles"] = [list(p) for p in spec.data["complex_poles"]]
-            return GainSet(spec.name, K, "pole placement on the nominal model", prov)
+            return GainSet(spec.name, K, "mirror-symmetric pole placement on the nominal model", prov)
         if spec.method == "lqr":
             if "state_weights" in spec.data:
                 Q = np.diag(spec.data["state_weights"])

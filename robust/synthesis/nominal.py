@@ -22,6 +22,49 @@ def place(A: np.ndarray, B: np.ndarray, poles: np.ndarray) -> np.ndarray:
     return K
 
 
+SPEED_PITCH = [0, 2, 3]  # speed, pitch, pitch rate: moved by the common torque; yaw rate by the difference
+
+
+def place_symmetric(A: np.ndarray, B: np.ndarray, poles: np.ndarray) -> np.ndarray:
+    """Mirror-symmetric gain ``K`` (2 x 4) with ``eig(A - B K) = poles``.
+
+    At upright the reduced model of a left-right symmetric vehicle splits in
+    two: the common torque ``(u_L + u_R) / 2`` moves speed, pitch and pitch
+    rate; the differential torque ``(u_R - u_L) / 2`` moves the yaw rate
+    alone.  Three poles are placed on the first subsystem (single input:
+    the assignment is unique) and one real pole on the yaw loop: the slowest
+    real pole, so the balance loop gets the fastest ones.  The right row of
+    ``K`` is the left row with the yaw-rate column negated, so speed and
+    pitch commands never make the vehicle turn.
+    """
+    poles = np.asarray(poles, dtype=complex)
+    A = np.asarray(A, dtype=float)
+    B = np.asarray(B, dtype=float)
+    scale = max(1.0, float(np.abs(A).max()), float(np.abs(B).max()))
+    tol = 1e-9 * scale
+    coupled = np.abs(A[1, SPEED_PITCH]).max() > tol or np.abs(A[SPEED_PITCH, 1]).max() > tol
+    mirrored = np.allclose(B[SPEED_PITCH, 0], B[SPEED_PITCH, 1], atol=tol) and abs(B[1, 0] + B[1, 1]) <= tol
+    if coupled or not mirrored:
+        raise ValueError("the model is not left-right symmetric: the mirror-symmetric placement does not apply")
+    real = [p for p in poles if abs(p.imag) <= 1e-12 * max(1.0, abs(p))]
+    if not real:
+        raise ValueError("mirror-symmetric placement needs at least one real pole for the yaw loop")
+    yaw = max(real, key=lambda p: p.real).real  # the slowest real pole
+    rest = list(poles)
+    rest.remove(min(rest, key=lambda p: abs(p - yaw)))
+    A_sp = A[np.ix_(SPEED_PITCH, SPEED_PITCH)]
+    b_c = (B[SPEED_PITCH, 0] + B[SPEED_PITCH, 1])[:, None]
+    k_c = np.asarray(signal.place_poles(A_sp, b_c, np.array(rest)).gain_matrix, dtype=float)[0]
+    b_d = B[1, 1] - B[1, 0]
+    k_w = (A[1, 1] - yaw) / b_d
+    K = np.array([[k_c[0], -k_w, k_c[1], k_c[2]], [k_c[0], k_w, k_c[1], k_c[2]]])
+    got = np.sort_complex(np.linalg.eigvals(A - B @ K))
+    want = np.sort_complex(poles)
+    if not np.allclose(got, want, rtol=1e-6, atol=1e-8 * max(1.0, float(np.abs(want).max()))):
+        raise ValueError(f"pole placement missed the requested poles: got {got}, wanted {want}")
+    return K
+
+
 def lqr(A: np.ndarray, B: np.ndarray, Q: np.ndarray, R: np.ndarray) -> dict[str, np.ndarray]:
     """Continuous-time LQR: ``K = R^-1 B^T P`` with ``P`` from the algebraic Riccati equation.
 
