@@ -62,26 +62,7 @@ def simulate_numpy(
     trace: bool = False,
     stop_at_current_limit: bool = False,
 ) -> SimResult:
-    """Simulate ``n`` vehicles through one manoeuvre.
-
-    Parameters
-    ----------
-    plant
-        Batch of ``n`` vehicles.
-    K
-        Gain ``(2, 4)``; ``u = -K (x - x_ref)`` plus trim when enabled.
-    manoeuvre, controller
-        What is commanded and how the controller runs.
-    scale
-        Per-sample amplitude factor ``(n,)`` (default 1): multiplies the
-        manoeuvre's speed, yaw rate, push force and initial pitch.
-    envelope, trace
-        Record min / median / max across samples per controller step; record
-        every step of every sample (use with small ``n`` only).
-    stop_at_current_limit
-        Stop integrating a sample once it reaches its current limit (marked in
-        ``metrics["reached_current_limit"]``); used by the largest-step search.
-    """
+    """The numpy reference: same arguments and result as :func:`robust.simulate.simulate` (one ``K``)."""
     n = plant.n
     scale = np.ones(n) if scale is None else np.broadcast_to(np.asarray(scale, dtype=float), (n,)).copy()
     T = controller.sample_period_s
