@@ -241,3 +241,37 @@ def test_symmetric_placement_places_the_poles_and_mirrors_the_rows(transporter):
         np.testing.assert_array_equal(K[1], K[0] * np.array([1, -1, 1, 1]))
     with pytest.raises(ValueError, match="real pole"):
         place_symmetric(A, B, np.array([complex(-1, 1), complex(-1, -1), complex(-3, 2), complex(-3, -2)]))
+
+
+def test_certificate_rechecks_torque_ellipsoid_and_fails_when_tampered():
+    """The numpy re-check covers the invariant-ellipsoid torque bound (Boyd, El Ghaoui, Feron and
+    Balakrishnan 1994, sec. 7.2.3): the initial states lie in {x: x' X^-1 x <= 1} and each wheel's
+    torque is bounded on it. A certificate whose gain is tampered (scaled up) must fail the check."""
+    from pathlib import Path
+
+    from robust.case import load_case
+    from robust.synthesis.lmi import _check_common
+
+    case = load_case(Path(__file__).resolve().parent / "data" / "small_cart.toml")
+    poly = moment_box(case.box)
+    spec = Spec(
+        decay_rate=0.3,
+        objective="gain",
+        input_scale=7.5,
+        torque_limit=10.0,
+        initial_states=np.array([[0.0, 0.0, np.radians(2.0), 0.0]]),
+    )
+    r = synthesize(poly, spec)
+    cert = r.certificate
+    assert cert.passed
+    assert {"torque ellipsoid: initial states inside", "torque ellipsoid: torque bound"} <= set(cert.slack)
+    # rebuild Y from the gain (scaled coordinates) and tamper with it: the torque bound must fail
+    X1 = cert.lyapunov
+    K_s = -(r.K / spec.input_scale) @ np.diag(spec.state_scale)
+    Y = K_s @ X1
+    n = 4
+    zero = [(np.zeros((n, n)), np.zeros((n, n)))]
+    honest = _check_common(poly, spec, 0.0, X1, Y, zero * 3, 1e-6)
+    tampered = _check_common(poly, spec, 0.0, X1, 1e3 * Y, zero * 3, 1e-6)
+    assert honest.slack["torque ellipsoid: torque bound"] <= honest.tolerance * 10
+    assert tampered.slack["torque ellipsoid: torque bound"] > 0 and not tampered.passed

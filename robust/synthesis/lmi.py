@@ -331,7 +331,8 @@ def _common(poly: Polytope, spec: Spec, alpha: float, delta: float, effort: int 
     slack_vals = [(np.zeros((n, n)) if a is None else a, np.zeros((n, n)) if b is None else b) for a, b in slack_vals]
     K_scaled = Yv @ np.linalg.inv(X1v)
     K = spec.input_scale * K_scaled @ np.diag(1.0 / spec.state_scale)
-    cert = _check_common(poly, spec, alpha, X1v, Yv, slack_vals, delta)
+    gamma_v = float(gamma.value) if spec.objective == "cost" else None
+    cert = _check_common(poly, spec, alpha, X1v, Yv, slack_vals, delta, gamma_v)
     value = float(prob.value)
     return {"K": K, "solver": solver, "status": status, "certificate": cert, "value": value}, status
 
@@ -354,8 +355,11 @@ def _sqrtm(M):
     return V @ np.diag(np.sqrt(np.maximum(w, 0.0))) @ V.T
 
 
-def _check_common(poly, spec, alpha, X1, Y, slacks, delta) -> Certificate:
-    """Re-evaluate every vertex LMI at the returned point with numpy (independent of the solver)."""
+def _check_common(poly, spec, alpha, X1, Y, slacks, delta, gamma: float | None = None) -> Certificate:
+    """Re-evaluate every constraint the result claims at the returned point with numpy (independent of
+    the solver): every region LMI at every vertex, and, when requested, the torque ellipsoid (initial
+    states inside it, torque bound on it) and the guaranteed cost (cost LMI at every vertex, bound).
+    Non-strict constraints ``M >= 0`` are recorded as ``-min eig(M)`` (must be <= the tolerance)."""
     E, A, B = _scaled(poly, spec)
     n = 4
     X1 = 0.5 * (X1 + X1.T)
@@ -376,13 +380,57 @@ def _check_common(poly, spec, alpha, X1, Y, slacks, delta) -> Certificate:
         worst = max(worst, top)
     xe = float(np.linalg.eigvalsh(X1).min())
     tol = 1e-10 * max(1.0, float(np.abs(X1).max()))
+    nonstrict = -np.inf
+
+    def psd_gap(M) -> float:
+        return -float(np.linalg.eigvalsh(0.5 * (M + M.T)).min())
+
+    if spec.torque_limit is not None:
+        xs = np.diag(1.0 / spec.state_scale) @ np.atleast_2d(spec.initial_states).T
+        inside = max(
+            psd_gap(np.block([[np.ones((1, 1)), xs[:, j : j + 1].T], [xs[:, j : j + 1], X1]]))
+            for j in range(xs.shape[1])
+        )
+        lim = (spec.torque_limit / spec.input_scale) ** 2
+        bound = max(
+            psd_gap(np.block([[X1, Y[j : j + 1, :].T], [Y[j : j + 1, :], lim * np.ones((1, 1))]])) for j in range(2)
+        )
+        per_region["torque ellipsoid: initial states inside"] = inside
+        per_region["torque ellipsoid: torque bound"] = bound
+        nonstrict = max(nonstrict, inside, bound)
+    if spec.objective == "cost" and spec.cost_Q is not None and gamma is not None:
+        Q = np.diag(spec.state_scale) @ spec.cost_Q @ np.diag(spec.state_scale)
+        R = spec.cost_R * spec.input_scale**2
+        Qh, Rh = _sqrtm(Q), _sqrtm(R)
+        L, M = _regions(spec, alpha)[0]
+        top = -np.inf
+        for i in range(A.shape[0]):
+            if plain:
+                blk = _kron_value(L, M, X1, A[i] @ X1 + B[i] @ Y)
+                C = np.vstack([Qh @ X1, Rh @ Y])
+            else:
+                X3, X4 = slacks[0]
+                S = np.block([[X3, X4], [A[i] @ X1 + B[i] @ Y - E[i] @ X3, -E[i] @ X4]])
+                blk = _kron_value(L, M, Xbar, S)
+                C = np.vstack([np.hstack([Qh @ X1, np.zeros((n, n))]), np.hstack([Rh @ Y, np.zeros((2, n))])])
+            big = np.block([[blk, C.T], [C, -np.eye(n + 2)]])
+            top = max(top, float(np.linalg.eigvalsh(0.5 * (big + big.T)).max()))
+        xs = np.diag(1.0 / spec.state_scale) @ np.atleast_2d(spec.cost_states).T
+        cost_bound = max(
+            psd_gap(np.block([[np.full((1, 1), gamma), xs[:, j : j + 1].T], [xs[:, j : j + 1], X1]]))
+            for j in range(xs.shape[1])
+        )
+        per_region["guaranteed cost LMI"] = top
+        per_region["guaranteed cost bound"] = cost_bound
+        worst = max(worst, top)
+        nonstrict = max(nonstrict, cost_bound)
     return Certificate(
         lyapunov=X1,
         slack=per_region,
         smallest_slack=worst,
         smallest_x_eig=xe,
         tolerance=tol,
-        passed=bool(worst < -tol and xe > tol),
+        passed=bool(worst < -tol and xe > tol and nonstrict <= tol * 10),
     )
 
 
