@@ -604,6 +604,12 @@ def design_text(case, d) -> str:
         + ("VALID" if cert.passed else "NOT VALID"),
         "",
     )
+    if getattr(cert, "bound_active", False):
+        out += _wrap(
+            "note: the Lyapunov matrix touches its upper bound (conditioning limit); the certified decay rate may be "
+            "capped by that bound rather than by the models",
+            "",
+        )
     out += ["", f"Gain '{g.name}':", gain_matrix_text(g.K), ""]
     a = d.assessment
     if a is not None:

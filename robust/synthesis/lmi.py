@@ -123,6 +123,10 @@ class Certificate:
     smallest_x_eig: float
     tolerance: float
     passed: bool
+    bound_active: bool = False  # the Lyapunov matrix touches its upper bound: the answer may be capped by it
+
+
+X_BOUND = 1e3  # upper bound of the Lyapunov matrix (scaled coordinates), for conditioning
 
 
 @dataclass(frozen=True)
@@ -269,7 +273,7 @@ def _common(poly: Polytope, spec: Spec, alpha: float, delta: float, effort: int 
         K_s = -(np.asarray(spec.fixed_gain, dtype=float) / spec.input_scale) @ np.diag(spec.state_scale)
         Y = K_s @ X1
     Z = np.zeros((n, n))
-    cons = [X1 >> delta * np.eye(n), X1 << 1e3 * np.eye(n)]
+    cons = [X1 >> delta * np.eye(n), X1 << X_BOUND * np.eye(n)]
     # with a cost objective the positive definite Q already makes the Lyapunov
     # inequality strict, so the decay region is not tightened (the optimum then
     # equals the Riccati cost on a single model)
@@ -431,6 +435,7 @@ def _check_common(poly, spec, alpha, X1, Y, slacks, delta, gamma: float | None =
         smallest_x_eig=xe,
         tolerance=tol,
         passed=bool(worst < -tol and xe > tol and nonstrict <= tol * 10),
+        bound_active=bool(float(np.linalg.eigvalsh(X1).max()) >= 0.99 * X_BOUND),
     )
 
 
@@ -453,7 +458,7 @@ def _pdlf(poly: Polytope, spec: Spec, alpha: float, delta: float, eps: float, ef
     for i in range(m):
         AG = (A[i] + a_in * I) @ G + B[i] @ Y
         Phi = cp.bmat([[_he(AG), Xs[i] - G.T + eps * AG], [Xs[i] - G + eps * AG.T, -eps * _he(G)]])
-        cons += [_sym(Phi) << -delta * np.eye(2 * n), Xs[i] >> delta * I, Xs[i] << 1e3 * I]
+        cons += [_sym(Phi) << -delta * np.eye(2 * n), Xs[i] >> delta * I, Xs[i] << X_BOUND * I]
     kappa = cp.Variable()
     cons.append(_sym(cp.bmat([[kappa * np.eye(2), Y], [Y.T, _he(G) - I]])) >> 0)
     if spec.torque_limit is not None:
