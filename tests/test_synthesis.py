@@ -135,6 +135,9 @@ def test_infeasible_request_says_what_can_be_met(moment_result):
 def test_sampled_hull_verifies_containment(transporter):
     P = sampled_hull(transporter.box, points_per_axis=5, check_samples=2000)
     assert P.facts["verification_inside_fraction"] >= 0.99
+    # containment is verified against the box itself: its corners and edge midpoints are among the points
+    assert P.facts["corners_inside_fraction"] == 1.0
+    assert "corners" in P.facts["verification_points"]
     assert P.facts["verification_off_subspace"] < 1e-9
 
 
