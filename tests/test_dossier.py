@@ -110,3 +110,19 @@ def test_dossier_text_has_no_internal_names(two_runs):
         for pattern in (r"\bm11\b", r"\bc_b\b", r"\bTrue\b", r"\bFalse\b", "optimal_inaccurate", r"\[\s*-?\d+\.\d+,"):
             assert not re.search(pattern, text), (name, pattern)
     assert (a / ".robust-dossier").is_file()
+
+
+def test_results_validate_against_the_published_schema(two_runs):
+    """results.json validates against robust/report/results.schema.json (jsonschema, Draft 2020-12)."""
+    from importlib import resources
+
+    import jsonschema
+
+    a, _b, _ = two_runs
+    schema = json.loads(resources.files("robust.report").joinpath("results.schema.json").read_text())
+    jsonschema.Draft202012Validator.check_schema(schema)
+    data = json.loads((a / "results.json").read_text())
+    jsonschema.validate(data, schema, cls=jsonschema.Draft202012Validator)
+    bad = dict(data, verdicts=[dict(data["verdicts"][0], status="MAYBE")])
+    with pytest.raises(jsonschema.ValidationError):
+        jsonschema.validate(bad, schema, cls=jsonschema.Draft202012Validator)

@@ -25,6 +25,8 @@ from robust.report.text import fmt, plain_symbol, time_verdict_row
 from robust.synthesis.lmi import explain_status
 from robust.vehicle import PARAMETERS, get_parameter, plant_batch
 
+RESULTS_SCHEMA_VERSION = "1"  # results.json follows robust/report/results.schema.json
+
 SAFETY = [
     "These vehicles carry people and goods among people. This dossier analyses a model; "
     "analysis of a model is not a safety case.",
@@ -786,6 +788,7 @@ def _write_files(d, target: FolderTarget, blocks, figs, today: str) -> None:
         (tmp / "dossier.md").write_text(render_markdown(blocks, figs), encoding="utf-8")
         (tmp / "dossier.html").write_text(render_html(blocks, figs, d.case.title), encoding="utf-8")
         results = {
+            "schema_version": RESULTS_SCHEMA_VERSION,
             "stamp": d.stamp,
             "model": d.facts,
             "check": d.check,
