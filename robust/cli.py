@@ -171,6 +171,38 @@ def _tune(args: argparse.Namespace, progress) -> int:
     return 0 if v.passed else 1
 
 
+def _sensitivity(args: argparse.Namespace, progress) -> int:
+    from robust.analysis.metrics import METRICS
+    from robust.analysis.sensitivity import sobol_indices
+    from robust.case import CaseError, load_case
+    from robust.report.jsonout import dumps
+    from robust.report.text import sensitivity_text
+
+    case = load_case(args.case)
+    if not case.box.ranges:
+        raise CaseError(f"{args.case}: no [ranges]: nothing varies, so no tolerance drives anything")
+    gains = _gain_sets(case, args.gain, args.gain_file)
+    if args.metric:
+        metrics = list(args.metric)
+    else:  # the metrics the case's requirements bound (gain margin up is often unbounded: left out)
+        metrics = [n for n, m in METRICS.items() if m.requirement in case.requirements and n != "gain_margin_up"]
+        metrics = metrics or ["decay_rate"]
+    seed = case.study.seed if args.seed is None else args.seed
+    results = []
+    for g in gains:
+        for name in metrics:
+            progress(f"{g.name}: Sobol indices of {name} ({args.samples} base samples)")
+            try:
+                results.append((g.name, sobol_indices(case.box, g.K, name, base_samples=args.samples, seed=seed)))
+            except ValueError as exc:
+                progress(f"{g.name}: {name} skipped: {exc}")
+    if args.json:
+        _emit(dumps([{"gain": n, "indices": r} for n, r in results]))
+    else:
+        _emit(sensitivity_text(case, results))
+    return 0
+
+
 def _dossier(args: argparse.Namespace, progress) -> int:
     from pathlib import Path
 
@@ -296,6 +328,22 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--quiet", action="store_true", help="no progress messages")
     p.add_argument("--json", action="store_true", help="print JSON instead of text")
     p.set_defaults(func=_synthesize)
+
+    p = sub.add_parser(
+        "sensitivity",
+        help="which tolerance drives each metric: Sobol indices over the box (SALib)",
+    )
+    _gain_options(
+        p,
+        case_help="gain set from the case (repeatable; default all)",
+        file_help="gain file as well (repeatable)",
+    )
+    p.add_argument("--metric", action="append", help="linear metric (repeatable; default: those the case bounds)")
+    p.add_argument("--samples", type=_positive_int, default=1024, help="Saltelli base samples, a power of two")
+    p.add_argument("--seed", type=_seed, help="seed (default: the case's [study] seed)")
+    p.add_argument("--quiet", action="store_true", help="no progress messages")
+    p.add_argument("--json", action="store_true", help="print JSON instead of text")
+    p.set_defaults(func=_sensitivity)
 
     p = sub.add_parser(
         "tune",

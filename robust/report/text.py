@@ -618,3 +618,27 @@ def design_text(case, d) -> str:
             out += verdict_block(v)
         out += summary_lines(a.verdicts)
     return "\n".join(out) + "\n"
+
+
+def sensitivity_text(case, results) -> str:
+    """The sensitivity command's screen: per gain set and metric, the Sobol indices of every tolerance."""
+    out = [f"Which tolerance drives each metric: {case.title}", f"case SHA-256 {case.sha256}"]
+    out += _wrap(
+        "Sobol indices over the box (parameters uniform over their ranges; SALib, Saltelli sampling): "
+        "first order = the share of the metric's variance a tolerance explains alone; total = with all its "
+        "interactions. Brackets: the bootstrap confidence half-width.",
+        "",
+    )
+    for gain, r in results:
+        out += ["", f"'{gain}': {METRIC_LABELS.get(r.metric, r.metric)} ({r.evaluations} evaluations)"]
+        order = np.argsort(-r.total)
+        rows = [
+            [
+                parameter_label(r.parameters[i]),
+                f"{r.first_order[i]:.3f} ({r.first_order_conf[i]:.3f})",
+                f"{r.total[i]:.3f} ({r.total_conf[i]:.3f})",
+            ]
+            for i in order
+        ]
+        out.append(table(["tolerance", "first order", "total"], rows))
+    return "\n".join(out) + "\n"
