@@ -101,25 +101,39 @@ def _simulate(args: argparse.Namespace, progress) -> int:
     return 0 if a.passed else 1
 
 
-def _synthesize(args: argparse.Namespace, progress) -> int:
+def _new_gain_target(args: argparse.Namespace, section, default: str):
+    """The case (with ranges), the new gain's checked name and its checked gain-file target, before any work."""
     from pathlib import Path
 
     from robust.case import CaseError, load_case
-    from robust.design import design
-    from robust.gains import write_gain_file
     from robust.outputs import check_name, plan_gain_file
-    from robust.report.jsonout import dumps
-    from robust.report.text import design_text
-    from robust.synthesis.lmi import Infeasible
 
     case = load_case(args.case)
     if not case.box.ranges:
         raise CaseError(f"{args.case}: no [ranges]: nothing to make robust (use a nominal design)")
-    name = check_name(args.name, "--name") if args.name else case.synthesis.get("name", "lmi")
+    name = check_name(args.name, "--name") if args.name else section(case).get("name", default)
     target = plan_gain_file(args.out or Path("gains") / f"{name}.toml", protect=[args.case])
+    return case, name, target
+
+
+def _refuse_name_clash(name: str, gains) -> None:
+    from robust.case import CaseError
+
+    if any(g.name == name for g in gains):
+        raise CaseError(f"the new gain's name {name!r} is also a gain set in this run; choose another with --name")
+
+
+def _synthesize(args: argparse.Namespace, progress) -> int:
+    from robust.case import CaseError
+    from robust.design import design
+    from robust.gains import write_gain_file
+    from robust.report.jsonout import dumps
+    from robust.report.text import design_text
+    from robust.synthesis.lmi import Infeasible
+
+    case, name, target = _new_gain_target(args, lambda c: c.synthesis, "lmi")
     others = _gain_sets(case, args.gain, None) if args.gain or case.gains else []
-    if any(g.name == name for g in others):
-        raise CaseError(f"the new gain's name {name!r} is also a gain set of the case; choose another with --name")
+    _refuse_name_clash(name, others)
     overrides = {"route": args.route, "lyapunov": args.lyapunov, "objective": args.objective, "name": args.name}
     try:
         d = design(case, overrides=overrides, progress=progress, compare_with=others)
@@ -132,25 +146,16 @@ def _synthesize(args: argparse.Namespace, progress) -> int:
 
 
 def _tune(args: argparse.Namespace, progress) -> int:
-    from pathlib import Path
-
     from robust.assess import assess
-    from robust.case import CaseError, load_case
     from robust.design import CAUTION
     from robust.gains import GainSet, write_gain_file
-    from robust.outputs import check_name, plan_gain_file
     from robust.report.jsonout import dumps
     from robust.report.text import assessment_text
     from robust.synthesis.tuning import tune
 
-    case = load_case(args.case)
-    if not case.box.ranges:
-        raise CaseError(f"{args.case}: no [ranges]: nothing to make robust (use a nominal design)")
-    name = check_name(args.name, "--name") if args.name else case.tuning.get("name", "tuned")
-    target = plan_gain_file(args.out or Path("gains") / f"{name}.toml", protect=[args.case])
+    case, name, target = _new_gain_target(args, lambda c: c.tuning, "tuned")
     starts = _gain_sets(case, args.gain or case.tuning.get("starts") or None, args.gain_file)
-    if any(g.name == name for g in starts):
-        raise CaseError(f"the tuned gain's name {name!r} is also a starting gain set; choose another with --name")
+    _refuse_name_clash(name, starts)
     rounds = args.rounds or case.tuning.get("rounds", 3)
     evaluations = args.evaluations or case.tuning.get("evaluations", 150)
     r = tune(case, starts, name=name, outer_iterations=rounds, evaluations=evaluations, progress=progress)
