@@ -8,6 +8,7 @@ the failure probability with an exact (Clopper-Pearson) interval.
 
 from __future__ import annotations
 
+import functools
 from collections.abc import Callable
 from dataclasses import dataclass, replace
 
@@ -165,13 +166,17 @@ class SampleStream:
     def count(self) -> int:
         return int(self._points().shape[0]) if not self._streamed else int(self.study.samples)
 
+    @functools.cached_property
+    def _built(self) -> np.ndarray:
+        st = self.study
+        return plan_points(self.case.box, st.plan, samples=st.samples, seed=st.seed, grid_points=st.grid_points)
+
     @property
     def _streamed(self) -> bool:
         return self.study.plan == "monte_carlo" and bool(self.case.box.ranges)
 
     def _points(self) -> np.ndarray:
-        st = self.study
-        return plan_points(self.case.box, st.plan, samples=st.samples, seed=st.seed, grid_points=st.grid_points)
+        return self._built  # built once per stream (grids and quasi-random plans are budgeted)
 
     def chunks(self, size: int = CHUNK):
         """Yield ``(start, points)`` over the whole plan."""
@@ -295,7 +300,7 @@ def check_gain(
     wheels = _WheelMargins()
     wheels.add(case, K, cpts)
     for start, pts in stream.chunks():
-        v = evaluate(box, pts, K, chunk=2000)
+        v = evaluate(box, pts, K)
         for name, m in METRICS.items():
             vals = v[name]
             values[name][start : start + len(vals)] = vals

@@ -8,7 +8,6 @@ output is changed.
 from __future__ import annotations
 
 import json
-import math
 import tomllib
 from pathlib import Path
 
@@ -19,6 +18,7 @@ from hypothesis import HealthCheck, given, settings  # noqa: E402
 from hypothesis import strategies as st  # noqa: E402
 
 from robust.cli import main  # noqa: E402
+from robust.gains import _toml_value as toml_value  # noqa: E402
 
 SMALL = Path(__file__).resolve().parent / "data" / "small_cart.toml"
 BASE = tomllib.loads(SMALL.read_text())
@@ -31,23 +31,10 @@ SETTINGS = settings(
 
 
 def _toml_value(v) -> str:
-    if isinstance(v, bool):
-        return "true" if v else "false"
-    if isinstance(v, int):
-        return str(v)
-    if isinstance(v, float):
-        if math.isnan(v):
-            return "nan"
-        if math.isinf(v):
-            return "inf" if v > 0 else "-inf"
-        return repr(v)
-    if isinstance(v, str):
-        return json.dumps(v)
-    if isinstance(v, list):
-        return "[" + ", ".join(_toml_value(x) for x in v) + "]"
+    """Scalars and lists as the gain-file writer spells them; dicts as inline tables (test documents only)."""
     if isinstance(v, dict):
         return "{" + ", ".join(f"{json.dumps(k)} = {_toml_value(x)}" for k, x in v.items()) + "}"
-    raise TypeError(type(v))
+    return toml_value(v)
 
 
 def to_toml(doc: dict) -> str:

@@ -3,7 +3,8 @@
 The destabilising gain below is test data: the small cart's placed gain with the pitch and pitch-rate
 columns negated, so the pitch loop feeds the fall instead of opposing it. That such a gain makes
 the upright equilibrium unstable is a textbook fact of the inverted pendulum on a cart (any
-control text, e.g. Ogata, Modern Control Engineering, the inverted-pendulum examples); here the
+control text, e.g. Ogata, Modern Control Engineering, the inverted-pendulum examples; cited from
+memory); here the
 linear check itself shows a negative decay rate, which the test asserts first.
 """
 

@@ -64,7 +64,7 @@ def sobol_indices(
         "bounds": [[float(lo), float(hi)] for lo, hi in zip(box.low, box.high)],
     }
     X = sample.sample(problem, base_samples, calc_second_order=False, seed=seed)
-    y = evaluate(box, X, K, names=(metric,), chunk=2000)[metric]
+    y = evaluate(box, X, K, names=(metric,))[metric]
     if not np.all(np.isfinite(y)):
         raise ValueError(f"metric {metric!r} is unbounded somewhere in the box: its variance is undefined")
     res = analyze.analyze(problem, y, calc_second_order=False, conf_level=confidence, seed=seed, print_to_console=False)

@@ -21,7 +21,7 @@ from robust.dynamics import torque_envelope
 from robust.outputs import FolderTarget, file_stems, staged_folder
 from robust.report import figures as F
 from robust.report.jsonout import dumps
-from robust.report.text import fmt, plain_symbol, time_verdict_row
+from robust.report.text import fmt, plain_value, time_verdict_row
 from robust.synthesis.lmi import explain_status
 from robust.vehicle import PARAMETERS, get_parameter, plant_batch
 
@@ -66,21 +66,6 @@ class Figure:
     mpl: object = None
 
 
-def _plain(v) -> str:
-    """A value in plain words for a table cell: no Python lists, dicts or True/False."""
-    if isinstance(v, bool):
-        return "yes" if v else "no"
-    if isinstance(v, float):
-        return fmt(v, 6)
-    if isinstance(v, dict):
-        return "; ".join(f"{k.replace('_', ' ')}: {_plain(x)}" for k, x in v.items())
-    if isinstance(v, (list, tuple)):
-        return ", ".join(_plain(x) for x in v)
-    if isinstance(v, str):
-        return plain_symbol(v)
-    return str(v)
-
-
 def _h(level, text):
     return ("h", level, text)
 
@@ -123,7 +108,7 @@ def _blocks(d, today: str) -> tuple[list, list[Figure]]:
     B.append(_h(2, "Model assumptions and limits"))
     B += [_p("- " + a) for a in ASSUMPTIONS]
     B.append(_h(2, "Reproducibility stamp"))
-    rows = [[k.replace("_", " "), _plain(v)] for k, v in st.items() if k != "packages"]
+    rows = [[k.replace("_", " "), plain_value(v, 6, words=True)] for k, v in st.items() if k != "packages"]
     rows += [[f"package {k}", v] for k, v in st["packages"].items()]
     B.append(Table("Stamp", ["item", "value"], rows, "stamp"))
     # case summary
@@ -331,7 +316,9 @@ def _blocks(d, today: str) -> tuple[list, list[Figure]]:
         p, r = ds.polytope, ds.synthesis
         B.append(_h(2, f"LMI synthesis of '{ds.gain.name}'"))
         B.append(_p(f"Polytope route {p.route} with {p.vertices} vertices. Guarantee: {p.guarantee}."))
-        rows = [[k.replace("_", " "), _plain(v)] for k, v in p.facts.items() if not isinstance(v, dict)]
+        rows = [
+            [k.replace("_", " "), plain_value(v, 6, words=True)] for k, v in p.facts.items() if not isinstance(v, dict)
+        ]
         rows += [
             ["objective", r.spec.objective],
             ["Lyapunov matrix", r.spec.lyapunov],
@@ -380,7 +367,7 @@ def _blocks(d, today: str) -> tuple[list, list[Figure]]:
                 f"{stem}_gain",
             )
         )
-        prov = [[k.replace("_", " "), _plain(v)] for k, v in sorted(g.gain.provenance.items())]
+        prov = [[k.replace("_", " "), plain_value(v, 6, words=True)] for k, v in sorted(g.gain.provenance.items())]
         if prov:
             B.append(Table("Provenance", ["item", "value"], prov, None))
         rows = []

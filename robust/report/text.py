@@ -548,15 +548,21 @@ def plain_symbol(name: str) -> str:
     return SYMBOL_WORDS.get(name, name.replace("_", " "))
 
 
-def _fact_text(k: str, v) -> str:
+def plain_value(v, digits: int = 4, *, words: bool = False) -> str:
+    """A value in plain words for a screen or table cell: no Python lists, dicts or True/False.
+
+    Strings that are internal symbols become words; with ``words`` every underscore name does.
+    """
     if isinstance(v, bool):
         return "yes" if v else "no"
     if isinstance(v, float):
-        return fmt(v)
+        return fmt(v, digits)
+    if isinstance(v, dict):
+        return "; ".join(f"{k.replace('_', ' ')}: {plain_value(x, digits, words=words)}" for k, x in v.items())
     if isinstance(v, (list, tuple)):
-        return ", ".join(_fact_text("", x) for x in v)
+        return ", ".join(plain_value(x, digits, words=words) for x in v)
     if isinstance(v, str):
-        return plain_symbol(v) if v in SYMBOL_WORDS else v
+        return plain_symbol(v) if (words or v in SYMBOL_WORDS) else v
     return str(v)
 
 
@@ -572,7 +578,7 @@ def design_text(case, d) -> str:
     for k, v in p.facts.items():
         if isinstance(v, dict):
             continue
-        out += _wrap(f"{k.replace('_', ' ')}: {_fact_text(k, v)}")
+        out += _wrap(f"{k.replace('_', ' ')}: {plain_value(v)}")
     if "moment_intervals" in p.facts:
         mi = p.facts["moment_intervals"]
         units = p.facts.get("moment_units", {})

@@ -91,11 +91,7 @@ class _Scorer:
         self.M_runs = [manoeuvre_columns(m, ctl, np.ones(self.n)) for m in case.manoeuvres]
         self.probes = [(manoeuvre_columns(m, ctl, np.ones(self.n), stop=True), up) for m, up in step_probes(case)]
         req = case.requirements
-        self.linear = [
-            (name, m, req[m.requirement])
-            for name, m in METRICS.items()
-            if m.requirement in req and m.kind in ("min", "max")
-        ]
+        self.linear = [(name, m, req[m.requirement]) for name, m in METRICS.items() if m.requirement in req]
 
     def margins(self, K: np.ndarray) -> dict[str, float]:
         """The worst normalised margin of every requirement (negative fails), stability and no-fall included."""
@@ -205,7 +201,6 @@ def tune(
     best_score = -np.inf
     history = []
     thetas = [symmetric_part(g.K) for g in starts]
-    a = None
     it = 0
     for it in range(1, outer_iterations + 1):
         scorer = _Scorer(case, scen)
