@@ -189,6 +189,7 @@ def design(
         "certificate_largest_lmi_eigenvalue": cert.smallest_slack,
         "certificate_smallest_lyapunov_eigenvalue": cert.smallest_x_eig,
         "certificate_passed": cert.passed,
+        "lyapunov_bound": res.spec.lyapunov_bound,
         "lyapunov_bound_active": cert.bound_active,
         "tool_version": __version__,
         "date": _dt.date.today().isoformat(),

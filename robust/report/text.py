@@ -610,12 +610,16 @@ def design_text(case, d) -> str:
         + ("VALID" if cert.passed else "NOT VALID"),
         "",
     )
-    if getattr(cert, "bound_active", False):
+    bound = r.spec.lyapunov_bound
+    if cert.bound_active:
         out += _wrap(
-            "note: the Lyapunov matrix touches its upper bound (conditioning limit); the certified decay rate may be "
+            f"note: the Lyapunov matrix touches its upper bound {bound:.0e} even after relaxing it (largest allowed, "
+            "or a larger one gave no better answer within the conditioning limit); the certified decay rate may be "
             "capped by that bound rather than by the models",
             "",
         )
+    elif bound > 1e3:
+        out += _wrap(f"the Lyapunov bound was relaxed to {bound:.0e} because it limited the answer", "")
     out += ["", f"Gain '{g.name}':", gain_matrix_text(g.K), ""]
     a = d.assessment
     if a is not None:

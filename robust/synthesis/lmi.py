@@ -104,6 +104,7 @@ class Spec:
     state_scale: np.ndarray = field(default_factory=lambda: DEFAULT_STATE_SCALE.copy())
     input_scale: float = 1.0
     fixed_gain: np.ndarray | None = None  # analysis of a given gain (u = -K x, SI): Y is tied to K X1
+    lyapunov_bound: float = 1e3  # upper bound of the Lyapunov matrix (scaled coordinates); relaxed when active
 
 
 @dataclass(frozen=True)
@@ -126,7 +127,9 @@ class Certificate:
     bound_active: bool = False  # the Lyapunov matrix touches its upper bound: the answer may be capped by it
 
 
-X_BOUND = 1e3  # upper bound of the Lyapunov matrix (scaled coordinates), for conditioning
+X_BOUND = 1e3  # first upper bound of the Lyapunov matrix (scaled coordinates), for conditioning
+X_BOUND_MAX = 1e5  # the widest bound tried when the first one is active (condition number of X at most this)
+X_CONDITION_MAX = 1e10  # a relaxed answer whose Lyapunov matrix is worse conditioned than this is not taken
 
 
 @dataclass(frozen=True)
@@ -273,7 +276,7 @@ def _common(poly: Polytope, spec: Spec, alpha: float, delta: float, effort: int 
         K_s = -(np.asarray(spec.fixed_gain, dtype=float) / spec.input_scale) @ np.diag(spec.state_scale)
         Y = K_s @ X1
     Z = np.zeros((n, n))
-    cons = [X1 >> delta * np.eye(n), X1 << X_BOUND * np.eye(n)]
+    cons = [X1 >> delta * np.eye(n), X1 << spec.lyapunov_bound * np.eye(n)]
     # with a cost objective the positive definite Q already makes the Lyapunov
     # inequality strict, so the decay region is not tightened (the optimum then
     # equals the Riccati cost on a single model)
@@ -435,8 +438,18 @@ def _check_common(poly, spec, alpha, X1, Y, slacks, delta, gamma: float | None =
         smallest_x_eig=xe,
         tolerance=tol,
         passed=bool(worst < -tol and xe > tol and nonstrict <= tol * 10),
-        bound_active=bool(float(np.linalg.eigvalsh(X1).max()) >= 0.99 * X_BOUND),
+        bound_active=_touches(X1, spec.lyapunov_bound),
     )
+
+
+def _touches(X: np.ndarray, bound: float) -> bool:
+    """The Lyapunov matrix reaches its upper bound (the answer may be capped by the bound)."""
+    return bool(float(np.linalg.eigvalsh(0.5 * (X + X.T)).max()) >= 0.99 * bound)
+
+
+def _condition(X: np.ndarray) -> float:
+    w = np.linalg.eigvalsh(0.5 * (X + X.T)) if X.ndim == 2 else np.concatenate([np.linalg.eigvalsh(x) for x in X])
+    return float(w.max() / w.min()) if w.min() > 0 else np.inf
 
 
 def _pdlf(poly: Polytope, spec: Spec, alpha: float, delta: float, eps: float, effort: int = 0):
@@ -458,7 +471,7 @@ def _pdlf(poly: Polytope, spec: Spec, alpha: float, delta: float, eps: float, ef
     for i in range(m):
         AG = (A[i] + a_in * I) @ G + B[i] @ Y
         Phi = cp.bmat([[_he(AG), Xs[i] - G.T + eps * AG], [Xs[i] - G + eps * AG.T, -eps * _he(G)]])
-        cons += [_sym(Phi) << -delta * np.eye(2 * n), Xs[i] >> delta * I, Xs[i] << X_BOUND * I]
+        cons += [_sym(Phi) << -delta * np.eye(2 * n), Xs[i] >> delta * I, Xs[i] << spec.lyapunov_bound * I]
     kappa = cp.Variable()
     cons.append(_sym(cp.bmat([[kappa * np.eye(2), Y], [Y.T, _he(G) - I]])) >> 0)
     if spec.torque_limit is not None:
@@ -492,6 +505,7 @@ def _pdlf(poly: Polytope, spec: Spec, alpha: float, delta: float, eps: float, ef
         smallest_x_eig=xe,
         tolerance=tol,
         passed=bool(worst < -tol and xe > tol),
+        bound_active=any(_touches(X, spec.lyapunov_bound) for X in Xv),
     )
     K = spec.input_scale * (Yv @ np.linalg.inv(Gv)) @ np.diag(1.0 / spec.state_scale)
     return {
@@ -566,6 +580,106 @@ def _bisect(poly, spec, lo: float, hi: float, delta: float, steps: int, say=None
     return lo, best, solves
 
 
+def _relax_bound(poly, spec, alpha, res, delta, steps, say=None):
+    """While the Lyapunov matrix touches its upper bound at the answer, raise the bound to
+    :data:`X_BOUND_MAX` and search again from the answer: the bound keeps the matrix well conditioned
+    and must not be what limits the result.  A relaxed answer is taken only when it is better and its
+    Lyapunov matrix stays conditioned below :data:`X_CONDITION_MAX`.  Returns ``(spec, alpha, res, solves)``."""
+    solves = 0
+    while res["certificate"].bound_active and spec.lyapunov_bound < X_BOUND_MAX:
+        wider = replace(spec, lyapunov_bound=X_BOUND_MAX)
+        if say is not None:
+            say(
+                f"the Lyapunov bound {spec.lyapunov_bound:.0e} is active at the answer; relaxing it to "
+                f"{wider.lyapunov_bound:.0e}"
+            )
+        new_alpha, new = alpha, None
+        if spec.objective == "decay":
+            lo, hi = alpha, max(1.25 * alpha, alpha + 0.05)
+            while hi < 64.0:
+                r, _s, c = _attempt(poly, wider, hi, delta, say, escalate=False)
+                solves += c
+                if r is None:
+                    break
+                lo, new, hi = hi, r, 1.5 * hi
+            new_alpha, r, c = _bisect(poly, wider, lo, hi, delta, steps, say)
+            solves += c
+            new = r or new
+        else:
+            r, _s, c = _attempt(poly, wider, alpha, delta, say, escalate=False)
+            solves += c
+            if r is not None and r["value"] < res["value"] * (1.0 - 1e-6):
+                new = r
+        if new is None or _condition(new["certificate"].lyapunov) > X_CONDITION_MAX:
+            break
+        spec, alpha, res = wider, new_alpha, new
+    return spec, alpha, res, solves
+
+
+def _infeasible(poly, spec, delta, bisection_steps, say):
+    """Raise :class:`Infeasible` for a rate that did not certify, with the largest rate that does.
+
+    The search grows from below (the feasible interval is usually far below an
+    infeasible request), then bisects; where the Lyapunov bound is active at
+    the best rate found, the bracket is searched again with the widest bound
+    and the better answer is kept.  A rate that the solver could not settle
+    only lowers the answer, which stays certified.
+    """
+    base, st0, _c = _attempt(poly, spec, 0.0, delta, say)
+    if base is None and spec.lyapunov_bound < X_BOUND_MAX:
+        spec = replace(spec, lyapunov_bound=X_BOUND_MAX)
+        base, st0, _c = _attempt(poly, spec, 0.0, delta, say)
+    if base is None:
+        parts = ["stability of every model"]
+        if spec.damping is not None:
+            parts.append(f"damping >= {spec.damping:g}")
+        if spec.max_frequency is not None and disk_supported(poly):
+            parts.append(f"natural frequency <= {spec.max_frequency:g} rad/s")
+        if spec.torque_limit is not None:
+            parts.append(f"wheel torque <= {spec.torque_limit:g} N m for the stated initial states")
+        where = (
+            f"over this polytope ({poly.route}, {poly.vertices} vertices, {spec.lyapunov} Lyapunov matrix bounded "
+            f"by {spec.lyapunov_bound:.0e} in scaled coordinates"
+        )
+        if proved_infeasible(st0):
+            raise Infeasible(
+                f"no gain could be certified for {', '.join(parts)} {where}; {explain_status(st0)}). Relax the "
+                "damping, frequency or torque request, narrow the ranges, or try the other route."
+            )
+        raise Infeasible(
+            f"the LMIs for {', '.join(parts)} {where}) were NOT SOLVED, even with escalated effort: "
+            f"{explain_status(st0)}. This is not a proof that no gain exists; narrow the ranges or try the "
+            "other route."
+        )
+    lo, hi, last_ok = 0.0, None, base
+    trial = min(0.25, spec.decay_rate / 2)
+    while trial < spec.decay_rate:
+        r, _s, _c = _attempt(poly, spec, trial, delta, say, escalate=False)
+        if r is None:
+            hi = trial
+            break
+        lo, trial, last_ok = trial, 2.0 * trial, r
+    if hi is None:
+        hi = spec.decay_rate
+    best, r, _c = _bisect(poly, spec, lo, hi, delta, bisection_steps, say)
+    last_ok = r or last_ok
+    resolution = (hi - lo) / 2**bisection_steps
+    bound = spec.lyapunov_bound
+    if last_ok["certificate"].bound_active and spec.lyapunov_bound < X_BOUND_MAX:
+        wider = replace(spec, lyapunov_bound=X_BOUND_MAX)
+        if say is not None:
+            say(f"the Lyapunov bound is active at {best:.4g} 1/s; searching again with the bound {X_BOUND_MAX:.0e}")
+        more, r, _c = _bisect(poly, wider, best, hi, delta, bisection_steps, say)
+        if r is not None and more > best:
+            best, bound, resolution = more, X_BOUND_MAX, (hi - best) / 2**bisection_steps
+    raise Infeasible(
+        f"decay rate {spec.decay_rate:g} 1/s could not be certified over this polytope "
+        f"({poly.route}, {spec.lyapunov} Lyapunov matrix) with the other constraints kept; "
+        f"the largest certifiable decay rate is about {best:.4g} 1/s (certified with the Lyapunov bound "
+        f"{bound:.0e}; {resolution:.2g} 1/s resolution)"
+    )
+
+
 def synthesize(
     poly: Polytope,
     spec: Spec,
@@ -591,53 +705,17 @@ def synthesize(
     solves = 0
     res, status, c = _attempt(poly, spec, spec.decay_rate, delta, say)
     solves += c
+    if res is None and spec.lyapunov_bound < X_BOUND_MAX:
+        # the bound on the Lyapunov matrix is part of the LMIs: see whether it, not the models, stops the request
+        wider = replace(spec, lyapunov_bound=X_BOUND_MAX)
+        if say is not None:
+            say(f"not certified with the Lyapunov bound {spec.lyapunov_bound:.0e}; trying {X_BOUND_MAX:.0e}")
+        r, _s, c = _attempt(poly, wider, spec.decay_rate, delta, say, escalate=False)
+        solves += c
+        if r is not None:
+            spec, res = wider, r
     if res is None:
-        # what can be met: bisect the decay rate below the requested one
-        lo, hi = 0.0, spec.decay_rate
-        best = None
-        base, st0, c = _attempt(poly, spec, 0.0, delta, say)
-        solves += c
-        if base is None:
-            parts = ["stability of every model"]
-            if spec.damping is not None:
-                parts.append(f"damping >= {spec.damping:g}")
-            if spec.max_frequency is not None and disk_supported(poly):
-                parts.append(f"natural frequency <= {spec.max_frequency:g} rad/s")
-            if spec.torque_limit is not None:
-                parts.append(f"wheel torque <= {spec.torque_limit:g} N m for the stated initial states")
-            if proved_infeasible(st0):
-                raise Infeasible(
-                    f"no gain could be certified for {', '.join(parts)} over this polytope "
-                    f"({poly.route}, {poly.vertices} vertices, {spec.lyapunov} Lyapunov matrix; "
-                    f"{explain_status(st0)}). Relax the damping, frequency or torque request, narrow the ranges, "
-                    "or try the other route."
-                )
-            raise Infeasible(
-                f"the LMIs for {', '.join(parts)} over this polytope ({poly.route}, {poly.vertices} vertices, "
-                f"{spec.lyapunov} Lyapunov matrix) were NOT SOLVED, even with escalated effort: "
-                f"{explain_status(st0)}. This is not a proof that no gain exists; narrow the ranges or try the "
-                "other route."
-            )
-        # grow from below: the feasible interval is usually far below an infeasible request
-        lo, hi = 0.0, None
-        trial = min(0.25, spec.decay_rate / 2)
-        while trial < spec.decay_rate:
-            r, _s, c = _attempt(poly, spec, trial, delta, say, escalate=False)
-            solves += c
-            if r is None:
-                hi = trial
-                break
-            lo, trial = trial, 2.0 * trial
-        if hi is None:
-            hi = spec.decay_rate
-        best, _r, c = _bisect(poly, spec, lo, hi, delta, bisection_steps, say)
-        solves += c
-        raise Infeasible(
-            f"decay rate {spec.decay_rate:g} 1/s could not be certified over this polytope "
-            f"({poly.route}, {spec.lyapunov} Lyapunov matrix) with the other constraints kept; "
-            f"the largest certifiable decay rate is about {best:.4g} 1/s (certified; "
-            f"{(hi - lo) / 2**bisection_steps:.2g} 1/s resolution)"
-        )
+        _infeasible(poly, spec, delta, bisection_steps, say)
     alpha = spec.decay_rate
     if spec.objective == "decay":
         lo, hi = alpha, max(2.0 * alpha, 1.0)
@@ -650,6 +728,8 @@ def synthesize(
         alpha, r, c = _bisect(poly, spec, lo, hi, delta, bisection_steps, say)
         solves += c
         res = r or res
+    spec, alpha, res, c = _relax_bound(poly, spec, alpha, res, delta, bisection_steps, say)
+    solves += c
     cert = res["certificate"]
     return SynthesisResult(
         K=-res["K"],
@@ -678,6 +758,7 @@ class GainCertificate:
     certificate: Certificate | None
     status: str
     solves: int
+    lyapunov_bound: float = X_BOUND  # the bound on the Lyapunov matrix the answer was found with
 
 
 def certify_gain(
@@ -688,6 +769,7 @@ def certify_gain(
     upper: float,
     steps: int = 8,
     delta: float = 1e-6,
+    lyapunov_bound: float = X_BOUND,
     progress: Callable[[str], None] | None = None,
 ) -> GainCertificate:
     """The largest decay rate a common Lyapunov matrix certifies for the fixed gain ``K`` over ``poly``.
@@ -697,13 +779,28 @@ def certify_gain(
     and Balakrishnan 1994, ch. 5), so for a gain that came from the synthesis
     the answer agrees with its synthesis certificate.  ``upper`` bounds the
     search (the sampled worst-case decay rate: no certificate can exceed it).
+    The bound on the Lyapunov matrix is widened (to
+    :data:`X_BOUND_MAX`) while it is what stops the certificate.
     """
-    spec = Spec(decay_rate=0.0, objective="gain", input_scale=float(input_scale), fixed_gain=np.asarray(K, dtype=float))
+    spec = Spec(
+        decay_rate=0.0,
+        objective="gain",
+        input_scale=float(input_scale),
+        fixed_gain=np.asarray(K, dtype=float),
+        lyapunov_bound=float(lyapunov_bound),
+    )
     # one solve per rate at ordinary effort: a rate that is not certified only lowers the answer (conservative)
-    res, status, solves = _attempt_once(poly, spec, 0.0, delta, 0)
+    solves = 0
+    while True:
+        res, status, c = _attempt_once(poly, spec, 0.0, delta, 0)
+        solves += c
+        if res is not None or spec.lyapunov_bound >= X_BOUND_MAX:
+            break
+        spec = replace(spec, lyapunov_bound=X_BOUND_MAX)
     if res is None:
-        return GainCertificate(None, 0.0, None, status, solves)
-    lo, hi, best = 0.0, max(float(upper), 0.0), res
+        return GainCertificate(None, 0.0, None, status, solves, spec.lyapunov_bound)
+    top = max(float(upper), 0.0)
+    lo, hi, best = 0.0, top, res
     for _ in range(steps):
         mid = 0.5 * (lo + hi)
         if progress is not None:
@@ -714,4 +811,28 @@ def certify_gain(
             lo, best = mid, r
         else:
             hi = mid
-    return GainCertificate(lo, (max(float(upper), 0.0)) / 2**steps, best["certificate"], best["status"], solves)
+    spec, lo, best, c = _relax_bound_fixed(poly, spec, lo, best, delta, top, steps, progress)
+    solves += c
+    return GainCertificate(lo, top / 2**steps, best["certificate"], best["status"], solves, spec.lyapunov_bound)
+
+
+def _relax_bound_fixed(poly, spec, lo, best, delta, hi, steps, say=None):
+    """:func:`_relax_bound` for a fixed gain: the search stays below the sampled worst case ``hi``."""
+    solves = 0
+    while best["certificate"].bound_active and spec.lyapunov_bound < X_BOUND_MAX and hi - lo > 1e-9:
+        wider = replace(spec, lyapunov_bound=X_BOUND_MAX)
+        if say is not None:
+            say(f"the Lyapunov bound {spec.lyapunov_bound:.0e} is active; relaxing it to {wider.lyapunov_bound:.0e}")
+        a, b, new = lo, hi, None
+        for _ in range(steps):
+            mid = 0.5 * (a + b)
+            r, _st, c = _attempt_once(poly, wider, mid, delta, 0)
+            solves += c
+            if r is not None:
+                a, new = mid, r
+            else:
+                b = mid
+        if new is None or _condition(new["certificate"].lyapunov) > X_CONDITION_MAX:
+            break
+        spec, lo, best = wider, a, new
+    return spec, lo, best, solves

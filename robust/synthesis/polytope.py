@@ -136,8 +136,11 @@ def sampled_hull(
     coords = zs @ basis.T
     cmean = coords.mean(axis=0)
 
+    b_seen = [m.B]
+
     def project(samples):
         mc = reduced_model(box.plant(samples))
+        b_seen.append(mc.B)
         zc = (_entries(mc.A, mc.B) - centre)[:, varying] / scale[varying]
         cc = zc @ basis.T
         return cc, float(np.abs(zc - cc @ basis).max())
@@ -170,6 +173,7 @@ def sampled_hull(
     zv[:, varying] += (cverts @ basis) * scale[varying]
     A = zv[:, :16].reshape(-1, 4, 4)
     B = zv[:, 16:].reshape(-1, 4, 2)
+    _refuse_sign_flips(np.concatenate(b_seen), B, inflation, rank)
     facts = {
         "grid_points_per_axis": ppa,
         "grid_models": int(len(pts)),
@@ -196,6 +200,33 @@ def sampled_hull(
     return Polytope("sampled_hull", np.tile(np.eye(4), (len(idx), 1, 1)), A, B, guarantee, facts)
 
 
+STATE_WORDS = ("forward speed", "yaw rate", "pitch angle", "pitch rate")
+
+
+def _refuse_sign_flips(B_models: np.ndarray, B_vertices: np.ndarray, inflation: float, rank: int) -> None:
+    """Refuse a hull whose vertices reverse a sign the input matrix keeps over every model seen.
+
+    Where every model of the box pushes a state the same way with a wheel
+    torque, a vertex that pushes it the other way (or not at all) is a model no
+    gain can stabilise together with the real ones, so the LMIs would fail for a
+    reason that has nothing to do with the vehicle.  Say so instead.
+    """
+    pos = np.all(B_models > 0, axis=0)
+    neg = np.all(B_models < 0, axis=0)
+    flips = (pos & np.any(B_vertices <= 0, axis=0)) | (neg & np.any(B_vertices >= 0, axis=0))
+    if not flips.any():
+        return
+    names = sorted({STATE_WORDS[i] for i, _j in zip(*np.nonzero(flips))}, key=STATE_WORDS.index)
+    where = names[0] if len(names) == 1 else ", ".join(names[:-1]) + " and " + names[-1]
+    raise ValueError(
+        f"the sampled hull cannot serve this box: to contain the models spread over the box it must be inflated by "
+        f"{100 * inflation:.3g}% (their image is strongly curved in the {rank} directions it spans), and the inflated "
+        f"hull then reaches models in which wheel torque acts on the {where} with the opposite sign to "
+        "every real model; no gain can stabilise those. Use route 'moment_box' (rigorous; it takes ranges on chassis, "
+        "payload, torque constant and friction), or narrow the ranges"
+    )
+
+
 def _box_points(box: Box, n: int, seed: int) -> np.ndarray:
     """The box's corners, its edge midpoints, then ``n`` uniform points (seeded)."""
     cpts = corners(box)
@@ -207,6 +238,44 @@ def _box_points(box: Box, n: int, seed: int) -> np.ndarray:
     edge = np.unique(np.concatenate(mids), axis=0) if mids else np.zeros((0, len(box.ranges)))
     u = np.random.default_rng(seed).random((n, len(box.ranges)))
     return np.concatenate([cpts, edge, box.low + u * (box.high - box.low)])
+
+
+MAX_RIGOROUS_RANGES = 9  # the product polytope doubles or triples per range; beyond this the LMIs get too large
+
+
+def hull_vertices(points: np.ndarray, tol: float = 1e-9) -> np.ndarray:
+    """The points of ``points`` ``(n, d)`` that are vertices of their convex hull.
+
+    The hull is computed (qhull) in the affine subspace the points span, in
+    coordinates normalised per column.  The reduction is kept only when every
+    dropped point is verified inside the hull of the kept ones, to ``tol``
+    relative to the spread of the points (checked on the kept points' own hull
+    equations); otherwise all points are returned unchanged.
+    """
+    pts = np.asarray(points, dtype=float)
+    if pts.shape[0] <= 2:
+        return pts
+    centre = pts.mean(axis=0)
+    spread = np.abs(pts - centre).max(axis=0)
+    keep_cols = spread > 0
+    if not keep_cols.any():
+        return pts[:1]
+    z = (pts - centre)[:, keep_cols] / spread[keep_cols]
+    _u, s, vt = np.linalg.svd(z, full_matrices=False)
+    rank = int(np.sum(s > 1e-10 * s[0]))
+    c = z @ vt[:rank].T
+    if rank == 1:
+        idx = np.unique([int(np.argmin(c[:, 0])), int(np.argmax(c[:, 0]))])
+        return pts[idx]
+    try:
+        kept = np.sort(ConvexHull(c).vertices)
+        eq = ConvexHull(c[kept]).equations
+    except QhullError:  # pragma: no cover - degenerate data: keep everything
+        return pts
+    dropped = np.setdiff1d(np.arange(len(c)), kept)
+    if dropped.size and float((c[dropped] @ eq[:, :-1].T + eq[:, -1]).max()) > tol:
+        return pts
+    return pts[kept]
 
 
 def _interval(box: Box, name: str) -> tuple[float, float]:
@@ -253,6 +322,12 @@ def moment_box(box: Box) -> Polytope:
     intervals), and the vertices of the product polytope are mapped to
     ``(E, A, B)``.
     """
+    if len(box.ranges) > MAX_RIGOROUS_RANGES:
+        raise ValueError(
+            f"the moment_box route takes at most {MAX_RIGOROUS_RANGES} ranged parameters (the vertex count grows "
+            f"two- to threefold per range); this case has {len(box.ranges)}: fix the least influential ones "
+            "(see the sensitivity command) or use route 'sampled_hull'"
+        )
     bad = [r.name for r in box.ranges if not r.name.startswith(RIGOROUS_RANGES)]
     if bad:
         raise ValueError(
@@ -318,8 +393,11 @@ def moment_box(box: Box) -> Polytope:
     m33 = inertia("pitch") + col["chassis.mh2"] + col["payload.mh2"]
     m22 = 2 * mw * d**2 + 2 * Jw * d**2 / r**2 + 2 * Kw + inertia("yaw")
     q = np.stack([m11, m22, m33, Ml, col["k"], col["c_b"]], axis=1)
-    # drop duplicate vertices
+    # drop duplicate vertices, then those that are convex combinations of the others (E, A and B are affine
+    # in q, so the hull of the remaining points maps to the same polytope of models)
     q = np.unique(np.round(q, 12), axis=0)
+    product_vertices = int(q.shape[0])
+    q = hull_vertices(q)
     mats = descriptor_matrices(box, q)
     Ev = np.linalg.eigvalsh(mats["E"]).min(axis=1)
     if np.any(Ev <= 0):
@@ -328,6 +406,8 @@ def moment_box(box: Box) -> Polytope:
         "moment_intervals": {n: [float(q[:, j].min()), float(q[:, j].max())] for j, n in enumerate(MOMENT_NAMES)},
         "moment_units": dict(zip(MOMENT_NAMES, MOMENT_UNITS)),
         "groups": cols,
+        "product_vertices": product_vertices,
+        "vertices_after_reduction": int(q.shape[0]),
         "smallest_mass_matrix_eigenvalue": float(Ev.min()),
     }
     guarantee = (
