@@ -40,6 +40,7 @@ class DesignResult:
     check: CheckResult | None
     not_imposed: dict[str, str]
     assessment: object | None = None
+    warnings: tuple[str, ...] = ()
 
 
 CAUTION = (
@@ -102,8 +103,7 @@ def make_spec(case: Case, overrides: dict | None = None) -> tuple[Spec, dict[str
             "the rigorous route's descriptor form cannot carry the frequency disk (its diagonal blocks vanish)"
         )
         max_freq = None
-    drive = case.vehicle.drive
-    locked = drive.torque_constant_n_m_per_a * min(drive.current_limit_a, drive.supply_v / drive.resistance_ohm)
+    locked = locked_rotor_torque(case)
     objective = opts.get("objective", "gain")
     Q = R = xs = None
     if objective == "cost":
@@ -133,6 +133,45 @@ def make_spec(case: Case, overrides: dict | None = None) -> tuple[Spec, dict[str
         input_scale=float(locked),
     )
     return spec, not_imposed
+
+
+def locked_rotor_torque(case: Case) -> float:
+    """Largest torque the nominal drive can give one wheel: torque constant x the smaller of the current
+    limit and the stall current at the supply voltage. [N m]"""
+    drive = case.vehicle.drive
+    return drive.torque_constant_n_m_per_a * min(drive.current_limit_a, drive.supply_v / drive.resistance_ohm)
+
+
+def actuator_warnings(case: Case, spec: Spec, gain: GainSet, assessment=None) -> tuple[str, ...]:
+    """Plain warnings when a synthesized gain asks more of the drive than it can give.
+
+    The LMIs see a linear model without the drive's limits, so a gain can be
+    certified and still saturate the motors in every manoeuvre; the warnings
+    say so with the numbers: the worst peak wheel torque of the time-domain
+    check against the locked-rotor torque, and the objective ``decay`` without
+    a torque bound (the largest decay rate is bought with gain size).
+    """
+    out = []
+    locked = locked_rotor_torque(case)
+    if spec.objective == "decay" and spec.torque_limit is None:
+        out.append(
+            f"objective 'decay' without a torque bound: the decay rate is bought with gain size (largest entry "
+            f"{np.abs(gain.K).max():.4g} in SI units); the drive gives at most {locked:.4g} N m per wheel. Add "
+            "'torque_limit_n_m' to [synthesis], or use the tuning route, which sees the drive"
+        )
+    t = getattr(assessment, "time", None)
+    if t is not None:
+        g = next((x for x in t.gains if x.gain.name == gain.name), None)
+        peaks = [(w.value, m.name) for m in (g.manoeuvres if g else ()) for w in m.worst if w.name == "peak_torque_n_m"]
+        if peaks:
+            peak, where = max(peaks)
+            if peak >= 0.98 * locked:
+                out.append(
+                    f"the drive saturates: the worst peak wheel torque {peak:.4g} N m (manoeuvre '{where}', full "
+                    f"nonlinear model) reaches the locked-rotor torque {locked:.4g} N m; the LMI certificate covers "
+                    "the linear model only, not saturated motion"
+                )
+    return tuple(out)
 
 
 def design(
@@ -199,12 +238,25 @@ def design(
     if not_imposed:
         provenance["constraints_not_imposed"] = dict(not_imposed)
     gain = GainSet(name, res.K, f"LMI synthesis over the box ({route})", provenance)
-    result = DesignResult(polytope=poly, synthesis=res, gain=gain, check=None, not_imposed=not_imposed)
+    warns = actuator_warnings(case, res.spec, gain)
+    if warns:
+        gain = GainSet(name, res.K, gain.origin, provenance | {"warnings": list(warns)})
+    result = DesignResult(polytope=poly, synthesis=res, gain=gain, check=None, not_imposed=not_imposed, warnings=warns)
     if not assess_gains:
         return result
     say(f"assessing '{name}' over the box")
     a = assess(case, [gain, *(compare_with or [])], design=result, progress=progress)
+    warns = actuator_warnings(case, res.spec, gain, a)
     v = a.verdicts[0]
     verdict = v.as_record()
-    gain = GainSet(name, res.K, gain.origin, provenance | {"verdict": verdict})
-    return DesignResult(polytope=poly, synthesis=res, gain=gain, check=a.check, not_imposed=not_imposed, assessment=a)
+    extra = {"verdict": verdict} | ({"warnings": list(warns)} if warns else {})
+    gain = GainSet(name, res.K, gain.origin, provenance | extra)
+    return DesignResult(
+        polytope=poly,
+        synthesis=res,
+        gain=gain,
+        check=a.check,
+        not_imposed=not_imposed,
+        assessment=a,
+        warnings=warns,
+    )

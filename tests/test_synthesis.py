@@ -365,3 +365,31 @@ def test_sampled_hull_refuses_a_box_it_cannot_serve(cart):
     rigorous route (which does certify this box)."""
     with pytest.raises(ValueError, match="opposite sign.*moment_box"):
         sampled_hull(cart.box)
+
+
+def test_synthesis_warns_when_the_gain_saturates_the_drive():
+    """A gain that drives the wheels into their torque limit is flagged with the peak and the locked-rotor
+    torque (kt x min(current limit, supply / resistance): the stall torque of a DC motor, common practice);
+    the decay objective without a torque bound is always flagged."""
+    from pathlib import Path
+
+    from robust.assess import assess
+    from robust.case import load_case, resolve_gain
+    from robust.design import actuator_warnings, locked_rotor_torque, make_spec
+    from robust.gains import GainSet
+
+    case = load_case(Path(__file__).resolve().parent / "data" / "small_cart.toml")
+    spec, _ = make_spec(case)
+    placed = resolve_gain(case, case.gains[0])
+    hard = GainSet("hard", 8.0 * placed.K, "test")
+    a = assess(case, [placed, hard], linear=False)
+    locked = locked_rotor_torque(case)
+    assert locked == pytest.approx(0.5 * min(15.0, 36.0 / 0.5))
+    warn = actuator_warnings(case, spec, hard, a)
+    assert len(warn) == 1 and "saturates" in warn[0] and f"{locked:.4g} N m" in warn[0]
+    peak = max(w.value for m in a.time.gains[1].manoeuvres for w in m.worst if w.name == "peak_torque_n_m")
+    assert peak >= 0.98 * locked
+    quiet_peak = max(w.value for m in a.time.gains[0].manoeuvres for w in m.worst if w.name == "peak_torque_n_m")
+    assert (actuator_warnings(case, spec, placed, a) == ()) == (quiet_peak < 0.98 * locked)
+    decay = replace(spec, objective="decay", torque_limit=None)
+    assert any("without a torque bound" in w for w in actuator_warnings(case, decay, placed))

@@ -70,3 +70,51 @@ def test_tune_command_writes_a_gain_with_its_verdict(tmp_path, capsys):
     assert g.provenance["verdict"]["status"] == verdicts["tuned"]["status"]
     assert "not a safety case" in g.provenance["caution"]
     assert main(["tune", str(SMALL), "--name", "placed", "--out", str(tmp_path / "x.toml"), "--quiet"]) == 2
+
+
+def test_tuned_worst_case_matches_a_brute_force_grid_on_a_reduced_problem(tmp_path):
+    """Outside reference: exhaustive search. Reduced problem: one ranged parameter (payload mass), two free
+    entries (k_pitch, k_pitch_rate; the others fixed, the yaw loop made fast so it never limits), one
+    requirement set out of reach (decay rate >= 20 1/s) so that the tuner maximises the worst-case decay
+    rate over the range. A brute-force grid over the two entries (coarse, then refined about its best
+    cell) with the worst case over 201 payload values gives the optimum; the tuned gain's worst case must
+    match it to the grid's resolution (the largest change of the objective between the grid's best point
+    and its neighbours), and may not beat the refined grid by more than that either."""
+    import re
+
+    from robust.analysis.metrics import evaluate
+    from robust.gains import GainSet
+
+    text = SMALL.read_text()
+    text = re.sub(r"\[ranges\.drive\.torque_constant_n_m_per_a\]\nlow = 0\.45\nhigh = 0\.55\n", "", text)
+    text = re.sub(r"\[requirements\].*?\n\n", "[requirements]\nmin_decay_rate_per_s = 20.0\n\n", text, flags=re.S)
+    path = tmp_path / "reduced.toml"
+    path.write_text(text)
+    case = load_case(path)
+    assert [r.name for r in case.box.ranges] == ["payload.mass_kg"] and list(case.requirements) == [
+        "min_decay_rate_per_s"
+    ]
+    th0 = symmetric_part(resolve_gain(case, case.gains[0]).K)
+    th0[1] *= 20.0  # a fast yaw loop: the speed-pitch entries decide the worst decay rate
+    pts = np.linspace(case.box.low, case.box.high, 201)
+
+    def worst(kp, kq):
+        th = np.array([th0[0], th0[1], kp, kq])
+        return float(evaluate(case.box, pts, symmetric(th), names=("decay_rate",))["decay_rate"].min())
+
+    def search(kps, kqs):
+        F = np.array([[worst(a, b) for b in kqs] for a in kps])
+        i, j = np.unravel_index(int(F.argmax()), F.shape)
+        around = F[max(i - 1, 0) : i + 2, max(j - 1, 0) : j + 2]
+        return F[i, j], kps[i], kqs[j], float(np.abs(around - F[i, j]).max())
+
+    kps, kqs = np.linspace(0.5 * th0[2], 4 * th0[2], 36), np.linspace(0.2 * th0[3], 4 * th0[3], 36)
+    best, kp, kq, _ = search(kps, kqs)
+    dp, dq = kps[1] - kps[0], kqs[1] - kqs[0]
+    best, kp, kq, resolution = search(np.linspace(kp - dp, kp + dp, 31), np.linspace(kq - dq, kq + dq, 31))
+    start = GainSet("start", symmetric(th0), "test")
+    r = tune(case, [start], free=(2, 3), outer_iterations=2, evaluations=200)
+    th = symmetric_part(r.gain.K)
+    assert th[0] == th0[0] and th[1] == th0[1]  # fixed entries stay fixed
+    tuned = worst(th[2], th[3])
+    assert abs(tuned - best) <= max(resolution, 1e-6), (tuned, best, resolution)

@@ -316,6 +316,8 @@ def _blocks(d, today: str) -> tuple[list, list[Figure]]:
         p, r = ds.polytope, ds.synthesis
         B.append(_h(2, f"LMI synthesis of '{ds.gain.name}'"))
         B.append(_p(f"Polytope route {p.route} with {p.vertices} vertices. Guarantee: {p.guarantee}."))
+        for w in ds.warnings:
+            B.append(_p(f"WARNING: {w}."))
         rows = [
             [k.replace("_", " "), plain_value(v, 6, words=True)] for k, v in p.facts.items() if not isinstance(v, dict)
         ]

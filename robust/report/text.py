@@ -597,6 +597,8 @@ def design_text(case, d) -> str:
         + (f", wheel torque <= {fmt(s.torque_limit)} N m" if s.torque_limit is not None else ""),
         "",
     )
+    for w in d.warnings:
+        out += _wrap(f"WARNING: {w}", "")
     for key, why in d.not_imposed.items():
         out += _wrap(f"requested but NOT imposed by the LMIs: {key} ({why}); checked on samples only", "")
     out += _wrap(

@@ -41,6 +41,9 @@ from robust.uncertainty import corners
 _FLOORS = {"1/s": 0.1, "-": 0.05, "rad/s": 1.0, "dB": 1.0, "deg": 5.0, "ms": 5.0, "N m": 1.0, "s": 0.5, "m/s": 0.1}
 
 
+SYMMETRIC_NAMES = ("k_speed", "k_yaw_rate", "k_pitch", "k_pitch_rate")
+
+
 def symmetric(theta: np.ndarray) -> np.ndarray:
     """The mirror-symmetric gain ``(2, 4)`` from ``(k_speed, k_yaw_rate, k_pitch, k_pitch_rate)``."""
     kv, kw, kp, kq = (float(t) for t in theta)
@@ -176,6 +179,7 @@ def tune(
     name: str = "tuned",
     outer_iterations: int = 3,
     evaluations: int = 160,
+    free: tuple[int, ...] = (0, 1, 2, 3),
     progress: Callable[[str], None] | None = None,
 ) -> TuningResult:
     """Tune a mirror-symmetric gain against every requirement of the case over its box.
@@ -188,6 +192,9 @@ def tune(
         Rounds of optimise-then-check (each adds the worst models found to the scenarios).
     evaluations
         Nelder-Mead evaluations per start and round.
+    free
+        Which of the 4 mirror-symmetric numbers ``(k_speed, k_yaw_rate, k_pitch, k_pitch_rate)`` are
+        tuned; the others keep the first start's values.
     """
     from robust.assess import assess
 
@@ -195,12 +202,17 @@ def tune(
         raise ValueError("tuning needs at least one starting gain set (add [gains.NAME] to the case)")
     if not case.box.ranges:
         raise ValueError("tuning needs [ranges]: with one nominal vehicle there is nothing to make robust")
+    free_idx = np.array(sorted(set(free)), dtype=int)
+    if free_idx.size == 0 or free_idx.min() < 0 or free_idx.max() > 3:
+        raise ValueError(f"free: expected indexes among 0..3 of {SYMMETRIC_NAMES}, got {free}")
     say = progress or (lambda _m: None)
     scen = corners(case.box)
     best_theta = None
     best_score = -np.inf
     history = []
     thetas = [symmetric_part(g.K) for g in starts]
+    fixed = thetas[0].copy()
+    thetas = [np.where(np.isin(np.arange(4), free_idx), th, fixed) for th in thetas]
     it = 0
     for it in range(1, outer_iterations + 1):
         scorer = _Scorer(case, scen)
@@ -210,18 +222,23 @@ def tune(
         for th0 in thetas:
             scale = np.where(np.abs(th0) > 1e-3, th0, 1e-3)  # signed: z = 1 is the start itself
 
-            def f(z, scale=scale, scorer=scorer):
-                return -_score(scorer.margins(symmetric(z * scale)))
+            def theta_of(zf, scale=scale):
+                z = np.ones(4)
+                z[free_idx] = zf
+                return z * scale
+
+            def f(zf, scorer=scorer, theta_of=theta_of):
+                return -_score(scorer.margins(symmetric(theta_of(zf))))
 
             r = optimize.minimize(
                 f,
-                np.ones(4),
+                np.ones(free_idx.size),
                 method="Nelder-Mead",
                 options={"maxfev": evaluations, "xatol": 1e-3, "fatol": 1e-4},
             )
             s = -float(r.fun)
             if s > best_score:
-                best_score, best_theta = s, r.x * scale
+                best_score, best_theta = s, theta_of(r.x)
         K = symmetric(best_theta)
         gain = GainSet(name, K, "robust tuning over the box (mirror-symmetric)", {})
         say(f"tuning round {it}: scenario score {best_score:.3g}; checking the tuned gain over the whole box")
@@ -241,7 +258,9 @@ def tune(
     provenance = {
         "case_sha256": case.sha256,
         "method": "robust tuning (outer approximation, Nelder-Mead on the smallest normalised margin)",
-        "structure": "mirror-symmetric (4 free entries)",
+        "structure": "mirror-symmetric (4 free entries)"
+        if free_idx.size == 4
+        else f"mirror-symmetric, tuned entries {', '.join(SYMMETRIC_NAMES[i] for i in free_idx)}; others fixed",
         "rounds": it,
         "scenario_models": int(len(scen)),
         "scenario_score": float(best_score),
