@@ -10,6 +10,8 @@ from __future__ import annotations
 from collections.abc import Callable
 from dataclasses import dataclass
 
+import numpy as np
+
 from robust.case import Case, Study
 from robust.check import CheckResult, run_check
 from robust.gains import GainSet
@@ -92,3 +94,49 @@ def certify_gains(case: Case, gains: list[GainSet], check: CheckResult, *, progr
             progress(f"{g.name}: certifying its decay rate on {poly.vertices} polytope vertices")
         out[g.name] = certify_gain(poly, g.K, input_scale=spec.input_scale, upper=worst, steps=6)
     return out
+
+
+def merge_assessments(first: Assessment, second: Assessment, *, rename: dict | None = None) -> Assessment:
+    """One assessment of the gain sets of ``first`` then ``second`` (same case and study).
+
+    Lets a caller reuse an assessment already made (the tuned gain's final
+    check) instead of repeating it; ``rename`` maps a gain name to the
+    :class:`~robust.gains.GainSet` that replaces it inside ``first`` (same
+    matrix, fuller provenance).  Raises ``ValueError`` if the studies differ,
+    a gain name repeats, or a replacement changes the matrix.
+    """
+    from dataclasses import replace
+
+    rename = rename or {}
+
+    def swap(x):
+        g = rename.get(x.gain.name)
+        if g is None:
+            return x
+        if not np.array_equal(g.K, x.gain.K):
+            raise ValueError(f"gain {g.name!r}: the replacement has a different matrix")
+        return replace(x, gain=g)
+
+    names = [v.gain for v in first.verdicts] + [v.gain for v in second.verdicts]
+    if len(set(names)) != len(names):
+        raise ValueError(f"gain set names repeat across the assessments: {names}")
+
+    def join(a, b):
+        if a is None or b is None:
+            if a is not None or b is not None:
+                raise ValueError("one assessment has a part the other lacks")
+            return None
+        if a.study != b.study or a.case_sha256 != b.case_sha256:
+            raise ValueError("the assessments were made with different cases or studies")
+        return replace(a, gains=tuple(swap(g) for g in a.gains) + b.gains, passed=a.passed and b.passed)
+
+    certs = None
+    if first.certificates is not None or second.certificates is not None:
+        certs = {**(first.certificates or {}), **(second.certificates or {})}
+    return Assessment(
+        check=join(first.check, second.check),
+        time=join(first.time, second.time),
+        verdicts=first.verdicts + second.verdicts,
+        default_manoeuvres=first.default_manoeuvres,
+        certificates=certs,
+    )

@@ -113,7 +113,14 @@ def run_dossier(
         gains = [tuning.gain, *gains]
     if not gains:
         raise ValueError("the dossier needs at least one gain set: add [gains.NAME], [synthesis] or a gain file")
-    a = assess(case, gains, design=design, progress=progress)
+    if tuning is not None and tuning.assessment is not None and len(gains) > 1:
+        # the tuned gain was checked over the box with the case's study as the tuning's last step: reuse it
+        from robust.assess import merge_assessments
+
+        rest = assess(case, gains[1:], design=design, progress=progress)
+        a = merge_assessments(tuning.assessment, rest, rename={tuning.gain.name: tuning.gain})
+    else:
+        a = assess(case, gains, design=design, progress=progress)
     check, time = a.check, a.time
     pts = np.concatenate(
         [

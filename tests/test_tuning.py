@@ -56,6 +56,18 @@ def test_tuning_never_ends_worse_than_its_start_and_is_checked_over_the_box(smal
     np.testing.assert_array_equal(r.gain.K[1], r.gain.K[0] * np.array([1, -1, 1, 1]))
     assert r.history[0]["status"] in ("PASS", "FAIL", "INCOMPLETE")
     assert r.gain.provenance["structure"].startswith("mirror-symmetric")
+    # the tuning's own final check, reused beside a check of the other gains, equals one check of all of them
+    from robust.assess import assess, merge_assessments
+
+    merged = merge_assessments(r.assessment, assess(case, starts), rename={r.gain.name: r.gain})
+    fresh = assess(case, [r.gain, *starts])
+    assert [v.as_record() for v in merged.verdicts] == [v.as_record() for v in fresh.verdicts]
+    for a, b in zip(merged.check.gains, fresh.check.gains):
+        assert a.gain is b.gain or a.gain.name == b.gain.name
+        assert [(m.name, m.worst.value) for m in a.summaries] == [(m.name, m.worst.value) for m in b.summaries]
+    for a, b in zip(merged.time.gains, fresh.time.gains):
+        assert [w.value for m in a.manoeuvres for w in m.worst] == [w.value for m in b.manoeuvres for w in m.worst]
+    assert merged.check.gains[0].gain.provenance == r.gain.provenance
 
 
 def test_tune_command_writes_a_gain_with_its_verdict(tmp_path, capsys):

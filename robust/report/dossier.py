@@ -697,47 +697,11 @@ def render_html(blocks, figs, title: str) -> str:
     return "\n".join(out)
 
 
-def _text_table(t: Table, width: int) -> list[str]:
-    cols = list(zip(*([t.headers] + t.rows))) if t.rows else [[h] for h in t.headers]
-    widths = [min(max(len(str(c)) for c in col), 60) for col in cols]
+def render_pdf(blocks, figs, path: Path, title: str) -> None:
+    """The typeset PDF (see :mod:`robust.report.pdf`)."""
+    from robust.report.pdf import render_pdf as typeset
 
-    def clip(s, w):
-        s = str(s)
-        return s if len(s) <= w else s[: w - 1] + "~"
-
-    lines = [t.title]
-    lines.append("  ".join(clip(h, w).ljust(w) for h, w in zip(t.headers, widths)))
-    lines.append("  ".join("-" * w for w in widths))
-    lines += ["  ".join(clip(c, w).ljust(w) for c, w in zip(r, widths)) for r in t.rows]
-    return [ln[:width] for ln in lines] + [""]
-
-
-def render_pdf(blocks, figs, path: Path) -> None:
-    """A printable PDF: text pages (monospace tables) then one figure per page (vector)."""
-    import textwrap
-
-    import matplotlib.pyplot as plt
-    from matplotlib.backends.backend_pdf import PdfPages
-
-    lines: list[str] = []
-    for b in blocks:
-        if isinstance(b, Table):
-            lines += _text_table(b, 150)
-        elif b[0] == "h":
-            lines += ["", b[2].upper() if b[1] <= 2 else b[2], ""]
-        else:
-            lines += textwrap.wrap(b[1], 140) + [""]
-    per_page = 78
-    with PdfPages(path, metadata={"Creator": "robust", "Producer": "robust", "CreationDate": None}) as pdf:
-        for start in range(0, len(lines), per_page):
-            fig = plt.figure(figsize=(11.69, 8.27))
-            fig.text(0.03, 0.97, "\n".join(lines[start : start + per_page]), family="monospace", fontsize=5.6, va="top")
-            pdf.savefig(fig)
-            plt.close(fig)
-        for f in figs:
-            if f.mpl is not None:
-                pdf.savefig(f.mpl)
-                plt.close(f.mpl)
+    typeset(blocks, figs, path, title)
 
 
 def write_dossier(d, target: FolderTarget, *, today: str) -> dict[str, Path]:
@@ -788,7 +752,7 @@ def _write_files(d, target: FolderTarget, blocks, figs, today: str) -> None:
             "tuning": getattr(d, "tuning", None),
         }
         (tmp / "results.json").write_text(dumps(results), encoding="utf-8")
-        render_pdf(blocks, figs, tmp / "dossier.pdf")
+        render_pdf(blocks, figs, tmp / "dossier.pdf", d.case.title)
         (tmp / "COMPLETE").write_text(f"dossier complete; generated {today}\n", encoding="utf-8")
 
 

@@ -72,6 +72,7 @@ class TuningResult:
     scenarios: int
     score: float
     history: tuple[dict, ...]
+    assessment: object | None = None  # the final check of the tuned gain over the box (reusable by callers)
 
 
 def _scale(bound: float, unit: str) -> float:
@@ -243,6 +244,7 @@ def tune(
         gain = GainSet(name, K, "robust tuning over the box (mirror-symmetric)", {})
         say(f"tuning round {it}: scenario score {best_score:.3g}; checking the tuned gain over the whole box")
         a = assess(case, [gain], progress=None)
+        final = (best_theta.copy(), a)
         v = a.verdicts[0]
         history.append({"round": it, "scenarios": len(scen), "scenario_score": best_score, "status": v.status})
         if v.status == "PASS":
@@ -268,5 +270,10 @@ def tune(
     }
     gain = GainSet(name, symmetric(best_theta), "robust tuning over the box (mirror-symmetric)", provenance)
     return TuningResult(
-        gain=gain, iterations=it, scenarios=int(len(scen)), score=float(best_score), history=tuple(history)
+        gain=gain,
+        iterations=it,
+        scenarios=int(len(scen)),
+        score=float(best_score),
+        history=tuple(history),
+        assessment=final[1] if np.array_equal(final[0], best_theta) else None,
     )
