@@ -206,14 +206,10 @@ def _region_names(spec: Spec) -> list[str]:
 
 
 def _kron_block(L, M, Xbar, S):
-    m = L.shape[0]
-    rows = []
-    for a in range(m):
-        row = []
-        for b in range(m):
-            row.append(L[a, b] * Xbar + M[a, b] * S + M[b, a] * S.T)
-        rows.append(row)
-    return cp.bmat(rows)
+    """``L (x) Xbar + M (x) S + M^T (x) S^T`` as three Kronecker atoms (a few nodes per LMI keeps cvxpy's
+    compilation time proportional to the vertex count, not to the number of scalar blocks)."""
+    L, M = np.asarray(L, dtype=float), np.asarray(M, dtype=float)
+    return cp.kron(L, Xbar) + cp.kron(M, S) + cp.kron(M.T, S.T)
 
 
 def _kron_value(L, M, Xbar, S):
