@@ -215,14 +215,23 @@ def _dossier(args: argparse.Namespace, progress) -> int:
     from robust.dossier import run_dossier, today
     from robust.gains import read_gain_file
     from robust.outputs import plan_folder
+    from robust.report.decision import load_previous
     from robust.report.dossier import write_dossier
     from robust.report.text import dossier_text
 
     case = load_case(args.case)
     files = [read_gain_file(f) for f in args.gain_file or []]
+    previous = load_previous(args.previous) if args.previous else None
     out = Path(args.out) if args.out else Path("reports") / Path(args.case).stem
     target = plan_folder(out, protect=[args.case, *(args.gain_file or [])])
-    data = run_dossier(case, gain_files=files, synthesize=not args.no_synthesis, progress=progress)
+    data = run_dossier(
+        case,
+        gain_files=files,
+        gain_paths=list(args.gain_file or []),
+        synthesize=not args.no_synthesis,
+        previous=previous,
+        progress=progress,
+    )
     progress(f"writing the dossier to {target.path}")
     paths = write_dossier(data, target, today=today())
     _emit(dossier_text(data, paths["folder"]))
@@ -381,6 +390,11 @@ def build_parser() -> argparse.ArgumentParser:
         help="output folder (default reports/<case name>); an existing folder is replaced only if this tool wrote it",
     )
     p.add_argument("--no-synthesis", action="store_true", help="leave out the LMI synthesis the case asks for")
+    p.add_argument(
+        "--previous",
+        metavar="DIR",
+        help="a previous dossier of the same case: its verdicts and gains are compared on the decision page",
+    )
     p.add_argument(
         "--strict", action="store_true", help="exit 1 unless at least one gain set's overall verdict is PASS"
     )

@@ -8,10 +8,12 @@ the per-sample values the figures need.  Writes nothing.
 from __future__ import annotations
 
 import datetime as _dt
+import hashlib
 import importlib.metadata as _md
 import platform
 from collections.abc import Callable
 from dataclasses import dataclass, replace
+from pathlib import Path
 
 import numpy as np
 
@@ -21,9 +23,10 @@ from robust.analysis.metrics import evaluate
 from robust.assess import assess
 from robust.case import Case, resolve_gain
 from robust.check import CheckResult
-from robust.gains import GainSet
+from robust.gains import GainSet, gain_file_text
 from robust.linear import reduced_model
 from robust.modelfacts import ModelFacts, model_facts
+from robust.outputs import file_stems
 from robust.timecheck import TimeCheckResult
 from robust.uncertainty import corners, plan_points
 
@@ -46,6 +49,26 @@ class DossierData:
     design_error: str | None
     eigenvalues: dict[str, np.ndarray]
     sample_values: dict[str, dict[str, np.ndarray]]
+    inputs: tuple[Input, ...] = ()
+    previous: dict | None = None
+
+
+@dataclass(frozen=True)
+class Input:
+    """A file the dossier rests on, kept verbatim: the case, or a gain set's file.
+
+    ``name`` is the file name inside the dossier folder (``case.toml`` or
+    ``gains/NAME.toml``); ``origin`` where it came from (a path, or "written by
+    this dossier" for gain sets defined in the case, synthesized or tuned).
+    """
+
+    name: str
+    origin: str
+    content: bytes
+
+    @property
+    def sha256(self) -> str:
+        return hashlib.sha256(self.content).hexdigest()
 
 
 def stamp(case: Case) -> dict:
@@ -74,10 +97,16 @@ def run_dossier(
     case: Case,
     *,
     gain_files: list[GainSet] | None = None,
+    gain_paths: list[str] | None = None,
     synthesize: bool = True,
+    previous: dict | None = None,
     progress: Progress | None = None,
 ) -> DossierData:
-    """Run every analysis the dossier reports."""
+    """Run every analysis the dossier reports.
+
+    ``gain_paths`` are the files ``gain_files`` were read from (kept verbatim in
+    the dossier); ``previous`` the results of a previous dossier of the case.
+    """
     say = progress or (lambda _m: None)
     say("model facts")
     facts = model_facts(case)
@@ -139,8 +168,23 @@ def run_dossier(
     values = {
         g.name: evaluate(case.box, pts, g.K, names=("disk_margin", "phase_margin", "delay_margin")) for g in gains
     }
+    inputs = []
+    if Path(case.source).is_file():
+        content = Path(case.source).read_bytes()
+        if hashlib.sha256(content).hexdigest() != case.sha256:
+            raise ValueError(f"{case.source}: the case file changed while the dossier was being computed; run again")
+        inputs.append(Input("case.toml", str(case.source), content))
+    given = dict(zip((g.name for g in gain_files or []), gain_paths or []))
+    stems = file_stems(g.name for g in gains)
+    for g, stem in zip(gains, stems):
+        if g.name in given:
+            inputs.append(Input(f"gains/{stem}.toml", str(given[g.name]), Path(given[g.name]).read_bytes()))
+        else:
+            inputs.append(Input(f"gains/{stem}.toml", "written by this dossier", gain_file_text(g).encode("utf-8")))
     return DossierData(
         case=case,
+        inputs=tuple(inputs),
+        previous=previous,
         stamp=stamp(case),
         facts=facts,
         check=check,

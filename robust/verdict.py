@@ -292,3 +292,65 @@ def verdicts_for(
             )
         )
     return tuple(out)
+
+
+# how much a margin counts, per unit of the requirement (a margin of one "scale" equals a
+# normalised margin of 1; common practice: the bound itself, or a floor for bounds near zero)
+MARGIN_FLOORS = {
+    "1/s": 0.1,
+    "-": 0.05,
+    "rad/s": 1.0,
+    "dB": 1.0,
+    "deg": 5.0,
+    "ms": 5.0,
+    "N m": 1.0,
+    "s": 0.5,
+    "m/s": 0.1,
+}
+
+
+def margin_scale(bound: float, unit: str) -> float:
+    """The size of one unit of normalised margin for a requirement: the bound, or a floor for small bounds."""
+    return max(abs(bound), MARGIN_FLOORS.get(unit, 1.0))
+
+
+def smallest_normalised_margin(v: OverallVerdict) -> float:
+    """The smallest margin of the evaluated outcomes of ``v``, each divided by its :func:`margin_scale`
+    (negative: some requirement fails; ``-inf`` when nothing was evaluated)."""
+    vals = [
+        o.margin / margin_scale(o.bound if o.bound is not None else 0.0, o.unit)
+        for o in v.outcomes
+        if o.margin is not None and o.status != "not evaluated"
+    ]
+    return min(vals) if vals else float("-inf")
+
+
+def recommend(verdicts) -> tuple[OverallVerdict | None, str]:
+    """The gain set to recommend and why.
+
+    Among the gain sets whose overall verdict is PASS, the one with the
+    largest smallest normalised margin (the most room on its tightest
+    requirement).  When none passes: the closest one (fewest failing
+    requirements, then the largest smallest normalised margin), named as
+    *closest*, never as recommended.  ``(None, reason)`` when there is no
+    verdict at all.
+    """
+    verdicts = list(verdicts)
+    if not verdicts:
+        return None, "no gain set was assessed"
+    passing = [v for v in verdicts if v.passed]
+    if passing:
+        best = max(passing, key=smallest_normalised_margin)
+        return best, (
+            f"meets every requirement; of the {len(passing)} gain set(s) that do, it keeps the most room on its "
+            f"tightest requirement (smallest normalised margin {smallest_normalised_margin(best):.3g})"
+        )
+
+    def fails(v):
+        return sum(o.status == "fail" for o in v.outcomes)
+
+    best = min(verdicts, key=lambda v: (fails(v), -smallest_normalised_margin(v)))
+    return best, (
+        f"NO gain set meets every requirement; the closest is shown: {fails(best)} requirement(s) fail "
+        f"({', '.join(best.failing) if best.failing else 'see the matrix'})"
+    )

@@ -103,6 +103,9 @@ def _blocks(d, today: str) -> tuple[list, list[Figure]]:
     B.append(
         _p(f"Generated {today} by robust {st['tool_version']} from {st['case_file']} (SHA-256 {st['case_sha256']}).")
     )
+    from robust.report.decision import decision_blocks
+
+    B += decision_blocks(d, Table, _h, _p)
     B.append(_h(2, "Safety cautions"))
     B += [_p(s) for s in SAFETY]
     B.append(_h(2, "Model assumptions and limits"))
@@ -536,6 +539,20 @@ def _blocks(d, today: str) -> tuple[list, list[Figure]]:
                         f"{stem}_time_verdicts",
                     )
                 )
+    inputs = getattr(d, "inputs", ())
+    if inputs:
+        B.append(_h(2, "Appendix: the inputs, verbatim"))
+        B.append(
+            Table(
+                "Files this dossier rests on (copies in the dossier folder; SHA-256 of their bytes)",
+                ["file in the dossier folder", "from", "SHA-256"],
+                [[i.name, i.origin, i.sha256] for i in inputs],
+                "inputs",
+            )
+        )
+        for i in inputs:
+            B.append(_h(3, f"{i.name} (SHA-256 {i.sha256})"))
+            B.append(("pre", i.content.decode("utf-8", errors="replace")))
     B.append(_h(2, "Figures"))
     figs = []
     for name, caption, make in figure_plan(d):
@@ -642,6 +659,8 @@ def render_markdown(blocks, figs) -> str:
             out.append(_md_table(b))
         elif b[0] == "h":
             out.append("#" * b[1] + " " + _md_text(b[2]) + "\n")
+        elif b[0] == "pre":
+            out.append("```\n" + b[1].rstrip("\n") + "\n```\n")
         else:
             out.append(_md_text(b[1]) + "\n")
     for f in figs:
@@ -654,7 +673,8 @@ table{border-collapse:collapse;margin:0.5em 0 1.5em;font-size:0.85em}
 th,td{border:1px solid #999;padding:2px 6px;text-align:right;max-width:40em;overflow-wrap:anywhere}th{background:#eee}
 td:first-child,th:first-child{text-align:left}caption{font-weight:bold;text-align:left;padding:4px 0}
 .fail{font-weight:bold;text-decoration:underline}.caution{border:2px solid #000;padding:0.5em 1em}
-figure{margin:1em 0}figcaption{font-style:italic;font-size:0.9em}svg{max-width:100%;height:auto}"""
+figure{margin:1em 0}figcaption{font-style:italic;font-size:0.9em}svg{max-width:100%;height:auto}
+pre{font-size:0.8em;background:#f6f5f0;padding:0.5em;overflow-x:auto}"""
 
 
 def render_html(blocks, figs, title: str) -> str:
@@ -687,6 +707,8 @@ def render_html(blocks, figs, title: str) -> str:
             if b[2] == "Safety cautions":
                 out.append("<div class='caution'>")
                 in_caution = True
+        elif b[0] == "pre":
+            out.append(f"<pre>{html.escape(b[1])}</pre>")
         else:
             out.append(f"<p>{html.escape(b[1])}</p>")
     if in_caution:
@@ -738,6 +760,9 @@ def _write_files(d, target: FolderTarget, blocks, figs, today: str) -> None:
                 (tmp / "tables" / f"{_safe(b.csv_name)}.csv").write_text(buf.getvalue(), encoding="utf-8")
         for f in figs:
             (tmp / "figures" / f"{_safe(f.name)}.svg").write_text(f.svg, encoding="utf-8")
+        for i in getattr(d, "inputs", ()):
+            (tmp / i.name).parent.mkdir(parents=True, exist_ok=True)
+            (tmp / i.name).write_bytes(i.content)
         (tmp / "dossier.md").write_text(render_markdown(blocks, figs), encoding="utf-8")
         (tmp / "dossier.html").write_text(render_html(blocks, figs, d.case.title), encoding="utf-8")
         results = {
@@ -750,6 +775,7 @@ def _write_files(d, target: FolderTarget, blocks, figs, today: str) -> None:
             "synthesis_error": d.design_error,
             "verdicts": d.verdicts,
             "tuning": getattr(d, "tuning", None),
+            "inputs": [{"file": i.name, "origin": i.origin, "sha256": i.sha256} for i in getattr(d, "inputs", ())],
         }
         (tmp / "results.json").write_text(dumps(results), encoding="utf-8")
         render_pdf(blocks, figs, tmp / "dossier.pdf", d.case.title)

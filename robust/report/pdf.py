@@ -41,6 +41,7 @@ def _styles():
         ),
         "cell": ParagraphStyle("cell", parent=body, fontSize=6.8, leading=8.2),
         "head": ParagraphStyle("head", parent=body, fontName="Helvetica-Bold", fontSize=6.8, leading=8.2),
+        "pre": ParagraphStyle("pre", parent=body, fontName="Courier", fontSize=6.5, leading=7.8),
         "fail": ParagraphStyle("fail", parent=body, fontSize=6.8, leading=8.2, textColor=FAIL_COLOUR),
     }
 
@@ -124,7 +125,7 @@ def render_pdf(blocks, figs, path: Path, title: str) -> None:
     from reportlab.lib.pagesizes import A4, landscape
     from reportlab.lib.units import mm
     from reportlab.pdfgen import canvas as rl_canvas
-    from reportlab.platypus import PageBreak, Paragraph, SimpleDocTemplate
+    from reportlab.platypus import PageBreak, Paragraph, Preformatted, SimpleDocTemplate
 
     from robust.report.dossier import Table
 
@@ -173,6 +174,8 @@ def render_pdf(blocks, figs, path: Path, title: str) -> None:
             story += _table(b, styles, avail_w)
         elif b[0] == "h":
             story.append(Paragraph(escape(b[2]), styles[f"h{min(b[1], 3)}"]))
+        elif b[0] == "pre":
+            story.append(Preformatted(b[1].rstrip("\n"), styles["pre"], maxLineLength=170, newLineChars="  "))
         else:
             story.append(Paragraph(escape(b[1]), styles["body"]))
     shown = [f for f in figs if f.mpl is not None]

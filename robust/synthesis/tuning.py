@@ -35,11 +35,7 @@ from robust.analysis.metrics import METRICS, evaluate
 from robust.case import Case
 from robust.gains import GainSet
 from robust.uncertainty import corners
-
-# how much a margin counts, per unit of the requirement (a margin of one "scale" equals a
-# normalised margin of 1; common practice: the bound itself, or a floor for bounds near zero)
-_FLOORS = {"1/s": 0.1, "-": 0.05, "rad/s": 1.0, "dB": 1.0, "deg": 5.0, "ms": 5.0, "N m": 1.0, "s": 0.5, "m/s": 0.1}
-
+from robust.verdict import margin_scale as _scale
 
 SYMMETRIC_NAMES = ("k_speed", "k_yaw_rate", "k_pitch", "k_pitch_rate")
 
@@ -73,10 +69,6 @@ class TuningResult:
     score: float
     history: tuple[dict, ...]
     assessment: object | None = None  # the final check of the tuned gain over the box (reusable by callers)
-
-
-def _scale(bound: float, unit: str) -> float:
-    return max(abs(bound), _FLOORS.get(unit, 1.0))
 
 
 class _Scorer:
