@@ -19,6 +19,7 @@ import numpy as np
 
 from robust import __version__
 from robust.analysis.eigen import eigenvalues_4x4
+from robust.analysis.margins import loop_shapes
 from robust.analysis.metrics import evaluate
 from robust.assess import assess
 from robust.case import Case, resolve_gain
@@ -51,6 +52,11 @@ class DossierData:
     sample_values: dict[str, dict[str, np.ndarray]]
     inputs: tuple[Input, ...] = ()
     previous: dict | None = None
+    loop_frequencies: np.ndarray | None = None
+    loop_shapes: dict[str, dict[str, np.ndarray]] | None = None
+
+
+LOOP_SHAPE_MODELS = 400  # models (corners first) whose loop shapes are drawn as bands
 
 
 @dataclass(frozen=True)
@@ -168,6 +174,10 @@ def run_dossier(
     values = {
         g.name: evaluate(case.box, pts, g.K, names=("disk_margin", "phase_margin", "delay_margin")) for g in gains
     }
+    # loop shapes at each wheel input on the corners and the first samples (bands for the figures, peaks)
+    few = slice(0, min(len(pts), LOOP_SHAPE_MODELS))
+    freqs = np.logspace(-2, 3, 160)
+    shapes = {g.name: loop_shapes(model.A[few], model.B[few], g.K, freqs) for g in gains}
     inputs = []
     if Path(case.source).is_file():
         content = Path(case.source).read_bytes()
@@ -176,7 +186,8 @@ def run_dossier(
         inputs.append(Input("case.toml", str(case.source), content))
     given = dict(zip((g.name for g in gain_files or []), gain_paths or []))
     stems = file_stems(g.name for g in gains)
-    for g, stem in zip(gains, stems):
+    for g in gains:
+        stem = stems[g.name]
         if g.name in given:
             inputs.append(Input(f"gains/{stem}.toml", str(given[g.name]), Path(given[g.name]).read_bytes()))
         else:
@@ -185,6 +196,8 @@ def run_dossier(
         case=case,
         inputs=tuple(inputs),
         previous=previous,
+        loop_frequencies=freqs,
+        loop_shapes=shapes,
         stamp=stamp(case),
         facts=facts,
         check=check,

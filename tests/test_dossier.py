@@ -195,3 +195,29 @@ def test_recommendation_prefers_room_on_the_tightest_requirement():
     assert best.gain == "b" and "meets every requirement" in why
     best, why = recommend([v("c", "FAIL", [-0.1, -0.2]), v("d", "FAIL", [-0.5, 1.0])])
     assert best.gain == "d" and "NO gain set meets every requirement" in why
+
+
+def test_non_finite_values_are_null_with_their_meaning(two_runs):
+    """Strict JSON (RFC 8259 has no infinity): every null that stands for a non-finite number is listed with a
+    JSON Pointer (RFC 6901) that resolves to it, and numeric arrays hold only numbers or nulls."""
+    import math
+
+    from robust.report.jsonout import dumps
+
+    text = dumps({"a": [1.0, math.inf], "b": {"c/d": float("nan")}, "e": -math.inf})
+    doc = json.loads(text)
+    assert doc["a"] == [1.0, None] and doc["b"] == {"c/d": None} and doc["e"] is None
+    assert [(x["path"], x["value"]) for x in doc["non_finite"]] == [("/a/1", "inf"), ("/b/c~1d", "nan"), ("/e", "-inf")]
+    a, _b, _ = two_runs
+    raw = (a / "results.json").read_text()
+    assert "Infinity" not in raw and "NaN" not in raw and '"inf"' not in raw.replace('"value": "inf"', "")
+    data = json.loads(raw)
+
+    def resolve(doc, pointer):
+        for part in pointer.split("/")[1:]:
+            part = part.replace("~1", "/").replace("~0", "~")
+            doc = doc[int(part)] if isinstance(doc, list) else doc[part]
+        return doc
+
+    for entry in data["non_finite"]:
+        assert resolve(data, entry["path"]) is None, entry

@@ -357,3 +357,32 @@ def _direct_mimo(Acl: np.ndarray, B: np.ndarray, K: np.ndarray, w: np.ndarray) -
     I4 = np.eye(4)
     S = np.array([np.eye(2) - K @ np.linalg.solve(1j * x * I4 - Acl, B) for x in w])
     return float(1.0 / _mu_2x2(S - 0.5 * np.eye(2)).max())
+
+
+def loop_shapes(A: np.ndarray, B: np.ndarray, K: np.ndarray, w: np.ndarray) -> dict[str, np.ndarray]:
+    """Loop gain, sensitivity and complementary sensitivity magnitudes at each wheel input.
+
+    For the loop broken at input ``j`` (the other loop closed), ``L_j = N_j / D_j``
+    (see :func:`loop_polynomials`), ``S_j = 1 / (1 + L_j) = D_j / (D_j + N_j)`` and
+    ``T_j = L_j / (1 + L_j) = N_j / (D_j + N_j)``, evaluated at ``s = j w``.
+
+    Returns arrays ``"L"``, ``"S"``, ``"T"`` of shape ``(n, 2, len(w))`` (absolute
+    values, not dB) for a batch of ``n`` models, and the peaks ``"S_peak"``,
+    ``"T_peak"`` over the grid, shape ``(n, 2)``.
+    """
+    w = np.asarray(w, dtype=float)
+    n = A.shape[0]
+    out = {k: np.empty((n, 2, w.size)) for k in ("L", "S", "T")}
+    ww = np.broadcast_to(w, (n, w.size))
+    for j in range(2):
+        polys = loop_polynomials(A, B, K, j)
+        D = _at(polys["D"], ww)
+        N = _at(polys["N"], ww)
+        den = D + N
+        with np.errstate(divide="ignore", invalid="ignore"):
+            out["L"][:, j] = np.abs(N / D)
+            out["S"][:, j] = np.abs(D / den)
+            out["T"][:, j] = np.abs(N / den)
+    out["S_peak"] = out["S"].max(axis=2)
+    out["T_peak"] = out["T"].max(axis=2)
+    return out

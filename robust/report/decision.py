@@ -96,10 +96,12 @@ def open_items(d, best) -> list[str]:
     if best is not None:
         for o in best.outcomes:
             if o.status == "fail":
-                out.append(
-                    f"'{best.gain}' fails {o.label}: worst {fmt(o.worst)} {o.unit} against {fmt(o.bound)} "
-                    f"({o.failing})."
+                worst = (
+                    f": worst {fmt(o.worst)} {o.unit} against {fmt(o.bound)}"
+                    if o.worst is not None and o.bound is not None
+                    else ""
                 )
+                out.append(f"'{best.gain}' fails {o.label}{worst} ({o.failing or 'see the matrix'}).")
         for o in best.outcomes:
             if o.status == "not evaluated":
                 out.append(f"'{best.gain}': {o.label} was not evaluated ({o.why or 'no data'}).")

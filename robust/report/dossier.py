@@ -11,6 +11,7 @@ from __future__ import annotations
 import csv
 import html
 import io
+import re
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -25,7 +26,7 @@ from robust.report.text import fmt, plain_value, time_verdict_row
 from robust.synthesis.lmi import explain_status
 from robust.vehicle import PARAMETERS, get_parameter, plant_batch
 
-RESULTS_SCHEMA_VERSION = "1"  # results.json follows robust/report/results.schema.json
+RESULTS_SCHEMA_VERSION = "2"  # results.json follows robust/report/results.schema.json
 
 SAFETY = [
     "These vehicles carry people and goods among people. This dossier analyses a model; "
@@ -271,6 +272,41 @@ def _blocks(d, today: str) -> tuple[list, list[Figure]]:
             note="'(worst)' marks the worst gain set for each metric.",
         )
     )
+    shapes = getattr(d, "loop_shapes", None)
+    if shapes:
+        B.append(_h(2, "Loop shapes at each wheel input"))
+        n = next(iter(shapes.values()))["S"].shape[0]
+        B.append(
+            _p(
+                f"Loop broken at one wheel input with the other loop closed, on {n} models (the corners first, then "
+                "the samples): loop gain |L|, sensitivity |S| = |1/(1+L)| and complementary sensitivity "
+                "|T| = |L/(1+L)| over frequency. A sensitivity peak above 2 (6 dB) is commonly taken as too little "
+                "robustness; the disk margin in the tables above is the exact counterpart."
+            )
+        )
+        rows = []
+        for name, sh in shapes.items():
+            for j, side in enumerate(("left", "right")):
+                sp, tp = sh["S_peak"][:, j], sh["T_peak"][:, j]
+                rows.append(
+                    [
+                        name,
+                        side,
+                        fmt(float(sp.max())),
+                        fmt(20 * np.log10(float(sp.max()))),
+                        fmt(float(np.median(sp))),
+                        fmt(float(tp.max())),
+                        fmt(20 * np.log10(float(tp.max()))),
+                    ]
+                )
+        B.append(
+            Table(
+                "Sensitivity and complementary sensitivity peaks over the models",
+                ["gain set", "input", "worst |S| peak", "in dB", "median |S| peak", "worst |T| peak", "in dB"],
+                rows,
+                "loop_shape_peaks",
+            )
+        )
     B.append(_h(2, "Overall verdict of each gain set"))
     B.append(
         _p(
@@ -591,6 +627,18 @@ def figure_plan(d) -> list[tuple[str, str, object]]:
                 lambda: F.worst_locations(case.box.names, case.box.low, case.box.high, worst),
             )
         )
+    shapes = getattr(d, "loop_shapes", None) or {}
+    shape_stems = file_stems(shapes)
+    for name, sh in shapes.items():
+        stem = shape_stems[name]
+        plan.append(
+            (
+                f"{stem}_loop_shapes",
+                f"Loop shapes of '{name}' at each wheel input: |L|, |S| and |T| over frequency, median line and "
+                "min-max band over the models; dash-dot line: |S| = 2 (6 dB).",
+                lambda sh=sh, name=name: F.loop_shape_bands(d.loop_frequencies, sh, f"'{name}': loop shapes"),
+            )
+        )
     if tm is not None:
         v = case.vehicle
         w = np.linspace(-1.2, 1.2, 200) * v.drive.supply_v / v.drive.back_emf_v_s_per_rad
@@ -660,7 +708,10 @@ def render_markdown(blocks, figs) -> str:
         elif b[0] == "h":
             out.append("#" * b[1] + " " + _md_text(b[2]) + "\n")
         elif b[0] == "pre":
-            out.append("```\n" + b[1].rstrip("\n") + "\n```\n")
+            # a fence longer than any run of backticks inside, so verbatim text can never close it early
+            runs = [len(r) for r in re.findall(r"`+", b[1])]
+            fence = "`" * max(3, max(runs, default=0) + 1)
+            out.append(f"{fence}text\n" + b[1].rstrip("\n") + f"\n{fence}\n")
         else:
             out.append(_md_text(b[1]) + "\n")
     for f in figs:

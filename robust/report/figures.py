@@ -1,7 +1,9 @@
 """Dossier figures (matplotlib, Agg backend); each function returns a Figure.
 
-Colours come from matplotlib's default cycle; every series also has its own
-marker or line style and a legend entry, so no figure relies on colour alone.
+One look for every figure, defined here only: the project's own palette
+(:data:`PALETTE`, muted ink colours on white), thin grey grids, no top or
+right spines.  Every series also has its own marker or line style and a
+legend entry, so no figure relies on colour alone.
 """
 
 from __future__ import annotations
@@ -9,6 +11,7 @@ from __future__ import annotations
 import io
 
 import matplotlib
+import matplotlib.ticker
 
 matplotlib.use("Agg")
 import matplotlib.pyplot as plt  # noqa: E402
@@ -17,7 +20,50 @@ from matplotlib.figure import Figure  # noqa: E402
 
 MARKERS = ("o", "s", "^", "D", "v", "P", "X")
 STYLES = ("-", "--", ":", "-.")
-plt.rcParams.update({"svg.hashsalt": "robust", "font.size": 9, "text.parse_math": False})  # names are text, never math
+# the project's palette: ink blue, brick, moss, plum, ochre, slate (distinct in greyscale too)
+PALETTE = ("#1d3f5e", "#b4462b", "#5a7a1a", "#6b3f7a", "#b8860b", "#4f5d6b")
+LIMIT_COLOUR = "#7a1f1f"  # requirement limits and forbidden zones
+plt.rcParams.update(
+    {
+        "svg.hashsalt": "robust",
+        "font.size": 9,
+        "text.parse_math": False,  # names are text, never math
+        "axes.prop_cycle": matplotlib.cycler(color=PALETTE),
+        "axes.spines.top": False,
+        "axes.spines.right": False,
+        "axes.edgecolor": "#55524a",
+        "grid.color": "#c9c6bd",
+        "grid.linewidth": 0.4,
+        "legend.frameon": False,
+    }
+)
+
+
+def loop_shape_bands(w: np.ndarray, shapes: dict[str, np.ndarray], title: str) -> Figure:
+    """Per wheel input: min-max bands and medians over the models of |L|, |S| and |T| against frequency,
+    with the |S| = 2 (6 dB) line, a common limit on the sensitivity peak."""
+    fig, axes = plt.subplots(1, 2, figsize=(10.0, 3.8), sharey=True)
+    for j, (ax, side) in enumerate(zip(axes, ("left wheel input", "right wheel input"))):
+        for k, (key, label, style) in enumerate(
+            (("L", "loop gain |L|", "-"), ("S", "sensitivity |S|", "--"), ("T", "complementary |T|", ":"))
+        ):
+            v = shapes[key][:, j]
+            ax.fill_between(w, v.min(axis=0), v.max(axis=0), color=PALETTE[k], alpha=0.18, lw=0)
+            ax.plot(w, np.median(v, axis=0), style, color=PALETTE[k], lw=1.3, label=f"{label}, median; band min-max")
+        ax.axhline(2.0, color=LIMIT_COLOUR, lw=0.8, ls="-.", label="|S| = 2 (6 dB)")
+        ax.set_xscale("log")
+        ax.set_yscale("log")
+        for axis in (ax.xaxis, ax.yaxis):  # plain numbers: math text is off in this project's figures
+            axis.set_major_formatter(matplotlib.ticker.FuncFormatter(lambda v, _p: f"{v:g}"))
+            axis.set_minor_formatter(matplotlib.ticker.NullFormatter())
+        ax.set_xlabel("frequency [rad/s]")
+        ax.set_title(side, fontsize=9)
+        ax.grid(True, which="both")
+    axes[0].set_ylabel("magnitude [-]")
+    axes[0].legend(fontsize=7, loc="lower left")
+    fig.suptitle(title)
+    fig.tight_layout()
+    return fig
 
 
 def svg(fig: Figure, *, close: bool = True) -> str:
