@@ -607,8 +607,8 @@ def figure_plan(d) -> list[tuple[str, str, object]]:
     plan: list[tuple[str, str, object]] = [
         (
             "eigenvalues",
-            "Closed-loop eigenvalues of every corner and sample, one marker per gain set; the shaded "
-            "area is the region the requirements ask for.",
+            "Closed-loop eigenvalues of every corner and sample, one marker per gain set; the hatched area is "
+            "what the requirements forbid (too slow a decay, too little damping, too high a natural frequency).",
             lambda: F.eigenvalue_map(d.eigenvalues, req),
         ),
         (
@@ -639,6 +639,7 @@ def figure_plan(d) -> list[tuple[str, str, object]]:
                 lambda sh=sh, name=name: F.loop_shape_bands(d.loop_frequencies, sh, f"'{name}': loop shapes"),
             )
         )
+    limits = {"pitch": req.get("max_pitch_deg"), "torque": req.get("max_wheel_torque_n_m")}
     if tm is not None:
         v = case.vehicle
         w = np.linspace(-1.2, 1.2, 200) * v.drive.supply_v / v.drive.back_emf_v_s_per_rad
@@ -648,16 +649,16 @@ def figure_plan(d) -> list[tuple[str, str, object]]:
         for tg in tm.gains:
             name = tg.gain.name
             stem = stems[name]
-            if tg.manoeuvres:
-                m = tg.manoeuvres[0]
+            man_stems = file_stems(m.name for m in tg.manoeuvres)
+            for k, m in enumerate(tg.manoeuvres):  # every manoeuvre (the first keeps the short file name)
                 plan.append(
                     (
-                        f"{stem}_envelope",
+                        f"{stem}_envelope" + ("" if k == 0 else f"_{man_stems[m.name]}"),
                         f"Response envelopes of '{name}' in '{m.name}' (min / median / max over corners and "
-                        "samples), the worst sample's trace, and the drive's torque-speed envelope with that "
-                        "sample's path.",
+                        "samples), the worst sample's trace, the requirement limits (dash-dot), and the drive's "
+                        "torque-speed envelope with that sample's path.",
                         lambda m=m, name=name: F.response_envelopes(
-                            m.envelope, m.worst_trace, drive_env, f"'{name}': {m.name} ({m.kind})"
+                            m.envelope, m.worst_trace, drive_env, f"'{name}': {m.name} ({m.kind})", limits
                         ),
                     )
                 )
@@ -725,7 +726,7 @@ th,td{border:1px solid #999;padding:2px 6px;text-align:right;max-width:40em;over
 td:first-child,th:first-child{text-align:left}caption{font-weight:bold;text-align:left;padding:4px 0}
 .fail{font-weight:bold;text-decoration:underline}.caution{border:2px solid #000;padding:0.5em 1em}
 figure{margin:1em 0}figcaption{font-style:italic;font-size:0.9em}svg{max-width:100%;height:auto}
-pre{font-size:0.8em;background:#f6f5f0;padding:0.5em;overflow-x:auto}"""
+pre{font-size:0.8em;background:#f6f5f0;padding:0.5em;overflow-x:auto}td:empty{min-width:16em;height:1.6em}"""
 
 
 def render_html(blocks, figs, title: str) -> str:

@@ -35,6 +35,7 @@ plt.rcParams.update(
         "grid.color": "#c9c6bd",
         "grid.linewidth": 0.4,
         "legend.frameon": False,
+        "hatch.color": LIMIT_COLOUR,
     }
 )
 
@@ -77,7 +78,7 @@ def svg(fig: Figure, *, close: bool = True) -> str:
 
 
 def eigenvalue_map(eigs: dict[str, np.ndarray], requirements: dict[str, float]) -> Figure:
-    """Closed-loop eigenvalues of all samples per gain set, with the required region shaded.
+    """Closed-loop eigenvalues of all samples per gain set; what the requirements forbid is hatched.
 
     Left: the whole spectrum; right: a zoom on the slowest poles, where the
     decay-rate and damping requirements bite.
@@ -106,9 +107,15 @@ def eigenvalue_map(eigs: dict[str, np.ndarray], requirements: dict[str, float]) 
             ok &= -X >= z * np.hypot(X, Y)
         if w is not None:
             ok &= np.hypot(X, Y) <= w
-        cs = ax.contourf(X, Y, ok.astype(float), levels=[0.5, 1.5], colors=["#d9ead3"], alpha=0.8)
+        # the forbidden zone is hatched and named in words; the allowed region stays white
+        cs = ax.contourf(X, Y, (~ok).astype(float), levels=[0.5, 1.5], colors="none", hatches=["////"])
         cs.set_rasterized(True)
-        ax.plot([], [], "s", color="#d9ead3", label="required region")
+        ax.fill([], [], facecolor="white", edgecolor=LIMIT_COLOUR, hatch="////", label="outside the requirements")
+        if z is not None:
+            r = np.hypot(lo, ymax)
+            th = np.arccos(z)
+            for sgn in (1, -1):
+                ax.plot([0, -r * np.cos(th)], [0, sgn * r * np.sin(th)], color=LIMIT_COLOUR, lw=0.7)
         for k, (name, e) in enumerate(eigs.items()):
             ax.plot(
                 e.real.ravel(),
@@ -121,7 +128,10 @@ def eigenvalue_map(eigs: dict[str, np.ndarray], requirements: dict[str, float]) 
             )
         ax.axvline(0.0, color="k", lw=0.8)
         if a:
-            ax.axvline(-a, color="k", ls="--", lw=0.8)
+            ax.axvline(-a, color=LIMIT_COLOUR, ls="--", lw=0.8, label=f"required decay rate {a:g} 1/s")
+        if w:
+            t = np.linspace(0, 2 * np.pi, 300)
+            ax.plot(w * np.cos(t), w * np.sin(t), color=LIMIT_COLOUR, ls=":", lw=0.8)
         ax.set_xlim(lo, hi)
         ax.set_ylim(-ymax, ymax)
         ax.set_xlabel("real part [1/s]")
@@ -159,9 +169,13 @@ def margin_distributions(values: dict[str, dict[str, np.ndarray]], requirements:
     return fig
 
 
-def response_envelopes(env, trace, drive_envelope: dict[str, np.ndarray], title: str) -> Figure:
+def response_envelopes(
+    env, trace, drive_envelope: dict[str, np.ndarray], title: str, limits: dict[str, float] | None = None
+) -> Figure:
     """Min / median / max bands of speed, yaw rate, pitch and torque, the worst sample's
-    trace, and the drive's torque-speed envelope with the worst sample's path."""
+    trace, and the drive's torque-speed envelope with the worst sample's path; the
+    requirement limits (``limits``: ``"pitch"`` in deg, ``"torque"`` in N m) drawn as lines."""
+    limits = limits or {}
     fig, axes = plt.subplots(2, 3, figsize=(10.0, 5.6))
     axes = axes.ravel()
     labels = {
@@ -181,6 +195,11 @@ def response_envelopes(env, trace, drive_envelope: dict[str, np.ndarray], title:
             ax.plot(trace.t, trace.state[0, :, idx[q]] * scale, "--", lw=1.0, label="worst sample")
         else:
             ax.plot(trace.t, trace.torque[0, :, 0 if q == "torque_left" else 1], "--", lw=1.0, label="worst sample")
+        lim = limits.get("pitch") if q == "pitch" else limits.get("torque") if q.startswith("torque") else None
+        if lim is not None:
+            for sgn in (1, -1):
+                ax.axhline(sgn * lim, color=LIMIT_COLOUR, ls="-.", lw=0.8, label="requirement" if sgn > 0 else None)
+            ax.legend(fontsize=6, loc="lower right")
         ax.set_xlabel("time [s]")
         ax.set_ylabel(labels[q])
         ax.grid(True, lw=0.3)
