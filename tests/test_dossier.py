@@ -5,6 +5,7 @@ from __future__ import annotations
 import json
 from pathlib import Path
 
+import numpy as np
 import pytest
 
 from robust.cli import main
@@ -221,3 +222,26 @@ def test_non_finite_values_are_null_with_their_meaning(two_runs):
 
     for entry in data["non_finite"]:
         assert resolve(data, entry["path"]) is None, entry
+
+
+def test_csv_tables_carry_full_precision_with_flags_in_their_own_columns(two_runs):
+    """The CSV files are for computation: every number parses back to the exact value in results.json (not the
+    rounded figure the documents show), and a flag shown inside a cell (the worst gain set, the worst corner)
+    sits in a column of its own."""
+    import csv
+
+    a, _b, _ = two_runs
+    data = json.loads((a / "results.json").read_text())
+    rows = list(csv.reader((a / "tables" / "comparison.csv").open()))
+    head = rows[0]
+    assert not any("(worst)" in c for r in rows for c in r)
+    for g in data["check"]["gains"]:
+        col = head.index(g["gain"]["name"])
+        for s in g["summaries"]:
+            row = next(r for r in rows if r[0].startswith(s["name"] + " ["))
+            want = s["worst"]["value"]
+            got = float(row[col])
+            assert (want is None and not np.isfinite(got)) or got == want, (s["name"], row[col], want)
+    corners = next(p for p in (a / "tables").glob("*_corners.csv") if not p.name.startswith("open_loop"))
+    chead = next(csv.reader(corners.open()))
+    assert any(h.endswith(" flag") for h in chead)

@@ -22,9 +22,39 @@ from robust.dynamics import torque_envelope
 from robust.outputs import FolderTarget, file_stems, staged_folder
 from robust.report import figures as F
 from robust.report.jsonout import dumps
-from robust.report.text import fmt, plain_value, time_verdict_row
+from robust.report.text import fmt as _fmt_text
+from robust.report.text import plain_value, time_verdict_row
 from robust.synthesis.lmi import explain_status
 from robust.vehicle import PARAMETERS, get_parameter, plant_batch
+
+
+class Shown(str):
+    """A number as the documents show it (rounded text) that remembers its full value and an optional flag,
+    so the CSV tables can carry full precision with the flag in a column of its own."""
+
+    value: float
+    flag: str
+
+    def __new__(cls, text: str, value, flag: str = ""):
+        obj = super().__new__(cls, text)
+        obj.value = value
+        obj.flag = flag
+        return obj
+
+
+def fmt(x, digits: int = 4) -> str:
+    """:func:`robust.report.text.fmt` that keeps the full value for the CSV files (real numbers only)."""
+    text = _fmt_text(x, digits)
+    if isinstance(x, (complex, np.complexfloating)):
+        return text
+    return Shown(text, float(x))
+
+
+def _csv_cell(c) -> str:
+    if isinstance(c, Shown):
+        return repr(float(c.value)) if np.isfinite(c.value) else _fmt_text(c.value)
+    return str(c)
+
 
 RESULTS_SCHEMA_VERSION = "2"  # results.json follows robust/report/results.schema.json
 
@@ -244,7 +274,10 @@ def _blocks(d, today: str) -> tuple[list, list[Figure]]:
         rows.append(
             [
                 f"{s0.name} [{s0.unit}]",
-                *((fmt(v) + (" (worst)" if v == worst and len(set(vals)) > 1 else "")) for v in vals),
+                *(
+                    Shown(fmt(v) + " (worst)", v, "worst") if v == worst and len(set(vals)) > 1 else fmt(v)
+                    for v in vals
+                ),
             ]
         )
     reqs = list(dict.fromkeys((v.requirement, v.metric) for g in chk.gains for v in g.verdicts))
@@ -458,7 +491,7 @@ def _blocks(d, today: str) -> tuple[list, list[Figure]]:
                 col = cv[mname]
                 m = METRICS[mname]
                 bad = int(np.argmin(col)) if m.kind == "min" else int(np.argmax(col))
-                cells.append(fmt(col[i]) + (" *" if i == bad else ""))
+                cells.append(Shown(fmt(col[i]) + " *", col[i], "worst corner") if i == bad else fmt(col[i]))
             rows.append([str(i + 1), *(fmt(v) for v in pt), *cells])
         B.append(
             Table(
@@ -807,8 +840,19 @@ def _write_files(d, target: FolderTarget, blocks, figs, today: str) -> None:
             if isinstance(b, Table) and b.csv_name:
                 buf = io.StringIO()
                 w = csv.writer(buf, lineterminator="\n")
-                w.writerow(b.headers)
-                w.writerows(b.rows)
+                # full precision for numbers; a flag shown inside a cell gets a column of its own
+                flagged = [any(isinstance(r[j], Shown) and r[j].flag for r in b.rows) for j in range(len(b.headers))]
+                head = []
+                for h, f in zip(b.headers, flagged):
+                    head += [h, f"{h} flag"] if f else [h]
+                w.writerow(head)
+                for r in b.rows:
+                    out = []
+                    for c, f in zip(r, flagged):
+                        out.append(_csv_cell(c))
+                        if f:
+                            out.append(c.flag if isinstance(c, Shown) else "")
+                    w.writerow(out)
                 (tmp / "tables" / f"{_safe(b.csv_name)}.csv").write_text(buf.getvalue(), encoding="utf-8")
         for f in figs:
             (tmp / "figures" / f"{_safe(f.name)}.svg").write_text(f.svg, encoding="utf-8")
