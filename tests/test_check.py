@@ -30,7 +30,9 @@ def transporter_json():
                 "--linear-only",
             ]
         )
-    full = json.loads(buf.getvalue())
+    from robust.report.jsonout import restore_non_finite
+
+    full = restore_non_finite(json.loads(buf.getvalue()))
     return code, full["check"] | {"overall": full["verdicts"], "time": full["time"]}
 
 

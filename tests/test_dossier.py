@@ -222,6 +222,10 @@ def test_non_finite_values_are_null_with_their_meaning(two_runs):
 
     for entry in data["non_finite"]:
         assert resolve(data, entry["path"]) is None, entry
+    from robust.report.jsonout import restore_non_finite
+
+    back = restore_non_finite(json.loads(text))
+    assert back["a"][1] == math.inf and math.isnan(back["b"]["c/d"]) and back["e"] == -math.inf
 
 
 def test_csv_tables_carry_full_precision_with_flags_in_their_own_columns(two_runs):

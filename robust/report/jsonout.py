@@ -75,3 +75,24 @@ def plain_document(value: Any) -> Any:
 def dumps(value: Any) -> str:
     """Stable JSON text (sorted keys, two-space indent, trailing newline); strict JSON (no NaN or Infinity)."""
     return json.dumps(plain_document(value), indent=2, sort_keys=True, allow_nan=False) + "\n"
+
+
+def restore_non_finite(doc: Any) -> Any:
+    """The inverse of :func:`plain_document` for a reader: put ``inf``, ``-inf`` and ``nan`` back at the places
+    ``doc["non_finite"]`` lists (in place; returns ``doc``)."""
+    if not isinstance(doc, dict):
+        return doc
+    for entry in doc.get("non_finite", []):
+        parts = [p.replace("~1", "/").replace("~0", "~") for p in entry["path"].split("/")[1:]]
+        if not parts:
+            continue
+        node = doc
+        for p in parts[:-1]:
+            node = node[int(p)] if isinstance(node, list) else node[p]
+        last = parts[-1]
+        value = float(entry["value"])
+        if isinstance(node, list):
+            node[int(last)] = value
+        else:
+            node[last] = value
+    return doc
