@@ -796,20 +796,29 @@ def certify_gain(
     if res is None:
         return GainCertificate(None, 0.0, None, status, solves, spec.lyapunov_bound)
     top = max(float(upper), 0.0)
-    lo, hi, best = 0.0, top, res
+    lo, r, c = _bisect_once(poly, spec, 0.0, top, delta, steps, progress)
+    best = r or res
+    solves += c
+    spec, lo, best, c = _relax_bound_fixed(poly, spec, lo, best, delta, top, steps, progress)
+    solves += c
+    return GainCertificate(lo, top / 2**steps, best["certificate"], best["status"], solves, spec.lyapunov_bound)
+
+
+def _bisect_once(poly, spec, lo, hi, delta, steps, say=None):
+    """Bisection of the decay rate in ``[lo, hi]`` with one solve per rate at ordinary effort (a rate that is
+    not certified only lowers the answer, which stays certified). Returns ``(rate, result or None, solves)``."""
+    best, solves = None, 0
     for _ in range(steps):
         mid = 0.5 * (lo + hi)
-        if progress is not None:
-            progress(f"certifying the gain at decay rate {mid:.3g} 1/s")
+        if say is not None:
+            say(f"certifying the gain at decay rate {mid:.3g} 1/s")
         r, _st, c = _attempt_once(poly, spec, mid, delta, 0)
         solves += c
         if r is not None:
             lo, best = mid, r
         else:
             hi = mid
-    spec, lo, best, c = _relax_bound_fixed(poly, spec, lo, best, delta, top, steps, progress)
-    solves += c
-    return GainCertificate(lo, top / 2**steps, best["certificate"], best["status"], solves, spec.lyapunov_bound)
+    return lo, best, solves
 
 
 def _relax_bound_fixed(poly, spec, lo, best, delta, hi, steps, say=None):
@@ -819,15 +828,8 @@ def _relax_bound_fixed(poly, spec, lo, best, delta, hi, steps, say=None):
         wider = replace(spec, lyapunov_bound=X_BOUND_MAX)
         if say is not None:
             say(f"the Lyapunov bound {spec.lyapunov_bound:.0e} is active; relaxing it to {wider.lyapunov_bound:.0e}")
-        a, b, new = lo, hi, None
-        for _ in range(steps):
-            mid = 0.5 * (a + b)
-            r, _st, c = _attempt_once(poly, wider, mid, delta, 0)
-            solves += c
-            if r is not None:
-                a, new = mid, r
-            else:
-                b = mid
+        a, new, c = _bisect_once(poly, wider, lo, hi, delta, steps, say)
+        solves += c
         if new is None or _condition(new["certificate"].lyapunov) > X_CONDITION_MAX:
             break
         spec, lo, best = wider, a, new
