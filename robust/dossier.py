@@ -21,6 +21,7 @@ from robust import __version__
 from robust.analysis.eigen import eigenvalues_4x4
 from robust.analysis.margins import loop_shapes
 from robust.analysis.metrics import evaluate
+from robust.analysis.sampled import sampled_decay_rate
 from robust.assess import assess
 from robust.case import Case, resolve_gain
 from robust.check import CheckResult
@@ -54,6 +55,7 @@ class DossierData:
     previous: dict | None = None
     loop_frequencies: np.ndarray | None = None
     loop_shapes: dict[str, dict[str, np.ndarray]] | None = None
+    sampled_decay: dict[str, np.ndarray] | None = None  # decay rate of the sampled loop per model [1/s]
 
 
 LOOP_SHAPE_MODELS = 400  # models (corners first) whose loop shapes are drawn as bands
@@ -178,6 +180,8 @@ def run_dossier(
     few = slice(0, min(len(pts), LOOP_SHAPE_MODELS))
     freqs = np.logspace(-2, 3, 160)
     shapes = {g.name: loop_shapes(model.A[few], model.B[few], g.K, freqs) for g in gains}
+    ctl = case.controller
+    sampled = {g.name: sampled_decay_rate(model.A, model.B, g.K, ctl.sample_period_s, ctl.latency_s) for g in gains}
     inputs = []
     if Path(case.source).is_file():
         content = Path(case.source).read_bytes()
@@ -198,6 +202,7 @@ def run_dossier(
         previous=previous,
         loop_frequencies=freqs,
         loop_shapes=shapes,
+        sampled_decay=sampled,
         stamp=stamp(case),
         facts=facts,
         check=check,
