@@ -169,6 +169,25 @@ def margin_distributions(values: dict[str, dict[str, np.ndarray]], requirements:
     return fig
 
 
+def _thin(t: np.ndarray, low: np.ndarray, mid: np.ndarray, high: np.ndarray, n: int = 500):
+    """At most ``n`` points of a band for drawing: blocks of samples, keeping each block's lowest low and
+    highest high (no peak is lost) and its first median value."""
+    step = max(1, int(np.ceil(len(t) / n)))
+    if step == 1:
+        return t, low, mid, high
+    m = len(t) // step * step
+    tb = t[:m:step]
+    lo = low[:m].reshape(-1, step).min(axis=1)
+    hi = high[:m].reshape(-1, step).max(axis=1)
+    md = mid[:m:step]
+    if m < len(t):  # the tail block
+        tb = np.append(tb, t[m])
+        lo = np.append(lo, low[m:].min())
+        hi = np.append(hi, high[m:].max())
+        md = np.append(md, mid[m])
+    return tb, lo, md, hi
+
+
 def response_envelopes(
     env, trace, drive_envelope: dict[str, np.ndarray], title: str, limits: dict[str, float] | None = None
 ) -> Figure:
@@ -176,6 +195,7 @@ def response_envelopes(
     trace, and the drive's torque-speed envelope with the worst sample's path; the
     requirement limits (``limits``: ``"pitch"`` in deg, ``"torque"`` in N m) drawn as lines."""
     limits = limits or {}
+    k = slice(None, None, max(1, len(trace.t) // 1500))  # the worst sample's path, thinned for drawing only
     fig, axes = plt.subplots(2, 3, figsize=(10.0, 5.6))
     axes = axes.ravel()
     labels = {
@@ -189,12 +209,14 @@ def response_envelopes(
     for ax, q in zip(axes, env.quantities):
         j = env.quantities.index(q)
         scale = np.degrees(1.0) if q == "pitch" else 1.0
-        ax.fill_between(env.t, env.low[:, j] * scale, env.high[:, j] * scale, alpha=0.3, label="min-max band")
-        ax.plot(env.t, env.median[:, j] * scale, "-", lw=1.2, label="median")
+        tb, lo, md, hi = _thin(env.t, env.low[:, j] * scale, env.median[:, j] * scale, env.high[:, j] * scale)
+        ax.fill_between(tb, lo, hi, alpha=0.3, label="min-max band")
+        ax.plot(tb, md, "-", lw=1.2, label="median")
         if q in idx:
-            ax.plot(trace.t, trace.state[0, :, idx[q]] * scale, "--", lw=1.0, label="worst sample")
+            ax.plot(trace.t[k], trace.state[0, k, idx[q]] * scale, "--", lw=1.0, label="worst sample")
         else:
-            ax.plot(trace.t, trace.torque[0, :, 0 if q == "torque_left" else 1], "--", lw=1.0, label="worst sample")
+            side = 0 if q == "torque_left" else 1
+            ax.plot(trace.t[k], trace.torque[0, k, side], "--", lw=1.0, label="worst sample")
         lim = limits.get("pitch") if q == "pitch" else limits.get("torque") if q.startswith("torque") else None
         if lim is not None:
             for sgn in (1, -1):
@@ -208,8 +230,8 @@ def response_envelopes(
     ax.plot(drive_envelope["speed"], drive_envelope["high"], "k-", lw=1.0, label="drive limit")
     ax.plot(drive_envelope["speed"], drive_envelope["low"], "k-", lw=1.0)
     spin = trace.spin[0]
-    ax.plot(spin[:, 0], trace.torque[0, :, 0], "--", lw=1.0, label="worst sample, left")
-    ax.plot(spin[:, 1], trace.torque[0, :, 1], ":", lw=1.0, label="worst sample, right")
+    ax.plot(spin[k, 0], trace.torque[0, k, 0], "--", lw=1.0, label="worst sample, left")
+    ax.plot(spin[k, 1], trace.torque[0, k, 1], ":", lw=1.0, label="worst sample, right")
     ax.set_xlabel("wheel speed relative to body [rad/s]")
     ax.set_ylabel("torque [N m]")
     ax.legend(fontsize=7)
