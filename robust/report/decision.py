@@ -58,6 +58,14 @@ def decision_blocks(d, Table, h, p) -> list:
                     None,
                 )
             )
+    B.append(
+        Table(
+            "Sign-off (to be filled in by hand; this tool signs nothing)",
+            ["field", "entry"],
+            [[f, "." * 48] for f in SIGN_OFF_FIELDS],
+            None,
+        )
+    )
     labels = list(dict.fromkeys(o.label for v in d.verdicts for o in v.outcomes))
     rows = []
     for label in labels:
@@ -77,14 +85,6 @@ def decision_blocks(d, Table, h, p) -> list:
     B.append(h(3, "Open items"))
     for item in open_items(d, best):
         B.append(p("- " + item))
-    B.append(
-        Table(
-            "Sign-off (to be filled in by hand; this tool signs nothing)",
-            ["field", "entry"],
-            [[f, ""] for f in SIGN_OFF_FIELDS],
-            None,
-        )
-    )
     if getattr(d, "previous", None) is not None:
         B += previous_blocks(d, Table, h, p)
     return B
