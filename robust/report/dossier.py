@@ -700,15 +700,18 @@ def figure_plan(d) -> list[tuple[str, str, object]]:
         ),
     ]
     if case.box.ranges:
-        first = chk.gains[0]
-        worst = {s.name: s.worst.at for s in first.summaries}
-        plan.append(
-            (
-                "worst_locations",
-                f"Where the worst case of each metric lies for '{first.gain.name}'.",
-                lambda: F.worst_locations(case.box.names, case.box.low, case.box.high, worst),
+        loc_stems = file_stems(g.gain.name for g in chk.gains)
+        for k, g in enumerate(chk.gains):  # every gain set (the first keeps the short file name)
+            worst = {s.name: s.worst.at for s in g.summaries}
+            plan.append(
+                (
+                    "worst_locations" + ("" if k == 0 else f"_{loc_stems[g.gain.name]}"),
+                    f"Where the worst case of each metric lies for '{g.gain.name}'.",
+                    lambda worst=worst, name=g.gain.name: F.worst_locations(
+                        case.box.names, case.box.low, case.box.high, worst, f"'{name}'"
+                    ),
+                )
             )
-        )
     shapes = getattr(d, "loop_shapes", None) or {}
     shape_stems = file_stems(shapes)
     for name, sh in shapes.items():

@@ -268,7 +268,9 @@ def step_map(names: tuple[str, ...], points: np.ndarray, survived: np.ndarray, u
     return fig
 
 
-def worst_locations(names: tuple[str, ...], low: np.ndarray, high: np.ndarray, worst: dict[str, dict]) -> Figure:
+def worst_locations(
+    names: tuple[str, ...], low: np.ndarray, high: np.ndarray, worst: dict[str, dict], gain: str = ""
+) -> Figure:
     """Where each metric's worst case lies, in normalised box coordinates (one line per metric)."""
     fig, ax = plt.subplots(figsize=(7.0, 3.8))
     xs = np.arange(len(names))
@@ -278,7 +280,7 @@ def worst_locations(names: tuple[str, ...], low: np.ndarray, high: np.ndarray, w
     ax.set_xticks(xs, [n.replace(".", "\n") for n in names])
     ax.set_ylim(-0.05, 1.05)
     ax.set_ylabel("position in range (0 = low, 1 = high)")
-    ax.set_title("Worst-case locations in the parameter box")
+    ax.set_title("Worst-case locations in the parameter box" + (f", {gain}" if gain else ""))
     ax.legend(fontsize=6, ncol=2, loc="upper left", bbox_to_anchor=(1.0, 1.0))
     ax.grid(True, lw=0.3)
     fig.tight_layout()
