@@ -159,6 +159,10 @@ def run_dossier(
     else:
         a = assess(case, gains, design=design, progress=progress)
     check, time = a.check, a.time
+    if design is not None:  # with the time-domain check at hand, say whether the LMI gain saturates the drive
+        from robust.design import actuator_warnings
+
+        design = replace(design, warnings=actuator_warnings(case, design.synthesis.spec, design.gain, a))
     pts = np.concatenate(
         [
             corners(case.box),
