@@ -50,6 +50,11 @@ def fmt(x, digits: int = 4) -> str:
     return Shown(text, float(x))
 
 
+def is_flagged(cell) -> bool:
+    """A cell the documents highlight: a failed requirement, or a value flagged worst (HTML and PDF alike)."""
+    return str(cell).startswith("FAIL") or (isinstance(cell, Shown) and bool(cell.flag))
+
+
 def _csv_cell(c) -> str:
     if isinstance(c, Shown):
         return repr(float(c.value)) if np.isfinite(c.value) else _fmt_text(c.value)
@@ -826,11 +831,7 @@ def render_html(blocks, figs, title: str) -> str:
             for r in b.rows:
                 cells = []
                 for c in r:
-                    cls = (
-                        " class='fail'"
-                        if str(c).startswith("FAIL") or "(worst)" in str(c) or str(c).endswith(" *")
-                        else ""
-                    )
+                    cls = " class='fail'" if is_flagged(c) else ""
                     cells.append(f"<td{cls}>{html.escape(str(c))}</td>")
                 rows.append("<tr>" + "".join(cells) + "</tr>")
             head = "".join(f"<th>{html.escape(h)}</th>" for h in b.headers)

@@ -46,10 +46,6 @@ def _styles():
     }
 
 
-def _is_flagged(text: str) -> bool:
-    return text.startswith("FAIL") or "(worst)" in text or text.endswith(" *")
-
-
 def _column_widths(headers, rows, avail: float) -> list[float]:
     """Widths from content: every column at least its longest word, the rest shared by content length."""
     from reportlab.pdfbase.pdfmetrics import stringWidth
@@ -78,10 +74,10 @@ def _table(t, styles, avail: float):
     from reportlab.platypus import Paragraph, Spacer, TableStyle
     from reportlab.platypus import Table as RLTable
 
+    from robust.report.dossier import is_flagged
+
     head = [Paragraph(escape(str(h)), styles["head"]) for h in t.headers]
-    body = [
-        [Paragraph(escape(str(c)), styles["fail" if _is_flagged(str(c)) else "cell"]) for c in row] for row in t.rows
-    ]
+    body = [[Paragraph(escape(str(c)), styles["fail" if is_flagged(c) else "cell"]) for c in row] for row in t.rows]
     widths = _column_widths([str(h) for h in t.headers], [[str(c) for c in r] for r in t.rows], avail)
     tab = RLTable([head, *body], colWidths=widths, repeatRows=1, hAlign="LEFT")
     tab.setStyle(
