@@ -234,6 +234,8 @@ def test_csv_tables_carry_full_precision_with_flags_in_their_own_columns(two_run
     sits in a column of its own."""
     import csv
 
+    from robust.report.jsonout import SI_UNITS
+
     a, _b, _ = two_runs
     data = json.loads((a / "results.json").read_text())
     rows = list(csv.reader((a / "tables" / "comparison.csv").open()))
@@ -244,8 +246,50 @@ def test_csv_tables_carry_full_precision_with_flags_in_their_own_columns(two_run
         for s in g["summaries"]:
             row = next(r for r in rows if r[0].startswith(s["name"] + " ["))
             want = s["worst"]["value"]
-            got = float(row[col])
+            shown_unit = row[0].split(" [", 1)[1].rstrip("]")  # the CSV keeps the document's display unit
+            factor = SI_UNITS[shown_unit][1] if shown_unit in SI_UNITS else 1.0
+            got = float(row[col]) * factor
             assert (want is None and not np.isfinite(got)) or got == want, (s["name"], row[col], want)
     corners = next(p for p in (a / "tables").glob("*_corners.csv") if not p.name.startswith("open_loop"))
     chead = next(csv.reader(corners.open()))
     assert any(h.endswith(" flag") for h in chead)
+
+
+def test_results_are_si_with_unit_suffixed_keys(two_runs):
+    """SI throughout (SI Brochure, 9th edition: s, rad; dB accepted for use with the SI): display units are
+    converted on the way out, values scaled exactly, parameter points untouched; the schema rejects a key in
+    a display unit anywhere in the document."""
+    import math
+    import re
+    from importlib import resources
+
+    import jsonschema
+
+    from robust.report.jsonout import plain_document
+
+    doc = plain_document(
+        {
+            "worst": {"delay_margin_ms": 150.0, "phase_margin_deg": 90.0, "gain_margin_up_db": 6.0},
+            "record": {"unit": "deg", "worst": {"value": 180.0, "at": {"payload.mass_kg": 40.0}}, "samples": 30},
+            "gain": {
+                "summaries": [{"name": "delay_margin", "unit": "ms"}, {"name": "damping", "unit": "-"}],
+                "corner_values": {"delay_margin": [100.0, math.inf], "damping": [0.5, 0.7]},
+            },
+        }
+    )
+    assert doc["worst"] == {"delay_margin_s": 0.15, "phase_margin_rad": math.pi / 2, "gain_margin_up_db": 6.0}
+    assert doc["record"] == {"unit": "rad", "worst": {"value": math.pi, "at": {"payload.mass_kg": 40.0}}, "samples": 30}
+    assert doc["gain"]["summaries"][0]["unit"] == "s"
+    assert doc["gain"]["corner_values"] == {"delay_margin_s": [0.1, None], "damping": [0.5, 0.7]}
+    assert doc["non_finite"][0]["path"] == "/gain/corner_values/delay_margin_s/1"
+
+    a, _b, _ = two_runs
+    data = json.loads((a / "results.json").read_text())
+    text = json.dumps(data)
+    # keys only: identifiers such as the requirement name "max_pitch_deg" are names, their record's unit is SI
+    assert not re.search(r'_(ms|deg)": ', text) and '"unit": "ms"' not in text and '"unit": "deg"' not in text
+    assert '"unit": "rad"' in text and "delay_margin_s" in text
+    schema = json.loads(resources.files("robust.report").joinpath("results.schema.json").read_text())
+    data["check"]["gains"][0]["inputs"][0]["worst"]["delay_margin_ms"] = 1.0
+    with pytest.raises(jsonschema.ValidationError):
+        jsonschema.validate(data, schema, cls=jsonschema.Draft202012Validator)

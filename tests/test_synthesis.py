@@ -225,7 +225,7 @@ def test_check_certify_marks_evidence_certified(capsys):
     data = json.loads(capsys.readouterr().out)
     cert = data["certificates"]["placed"]
     stab = next(o for o in data["verdicts"][0]["outcomes"] if o["key"] == "closed_loop_stable")
-    assert (stab["evidence"] == "certified") == (cert["decay_rate"] is not None)
+    assert (stab["evidence"] == "certified") == (cert["decay_rate_per_s"] is not None)
 
 
 def test_symmetric_placement_places_the_poles_and_mirrors_the_rows(transporter):

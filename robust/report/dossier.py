@@ -61,7 +61,7 @@ def _csv_cell(c) -> str:
     return str(c)
 
 
-RESULTS_SCHEMA_VERSION = "2"  # results.json follows robust/report/results.schema.json
+RESULTS_SCHEMA_VERSION = "3"  # results.json follows robust/report/results.schema.json
 
 SAFETY = [
     "These vehicles carry people and goods among people. This dossier analyses a model; "
@@ -923,12 +923,24 @@ def _write_files(d, target: FolderTarget, blocks, figs, today: str) -> None:
             "synthesis": None if d.design is None else {"polytope": d.design.polytope, "result": d.design.synthesis},
             "synthesis_error": d.design_error,
             "verdicts": d.verdicts,
-            "tuning": getattr(d, "tuning", None),
+            "tuning": _tuning_for_json(getattr(d, "tuning", None)),
             "inputs": [{"file": i.name, "origin": i.origin, "sha256": i.sha256} for i in getattr(d, "inputs", ())],
         }
         (tmp / "results.json").write_text(dumps(results), encoding="utf-8")
         render_pdf(blocks, figs, tmp / "dossier.pdf", d.case.title)
         (tmp / "COMPLETE").write_text(f"dossier complete; generated {today}\n", encoding="utf-8")
+
+
+def _tuning_for_json(tuning):
+    """The tuning record without its assessment: that is the check and time-domain results of the gain set
+    named in ``gain.name``, already under ``check``, ``time`` and ``verdicts`` (written once, not twice)."""
+    if tuning is None or getattr(tuning, "assessment", None) is None:
+        return tuning
+    import dataclasses
+
+    plain = {f.name: getattr(tuning, f.name) for f in dataclasses.fields(tuning) if f.name != "assessment"}
+    plain["assessment"] = f"see check, time and verdicts under the gain set named {tuning.gain.name!r}"
+    return plain
 
 
 def _safe(name: str) -> str:

@@ -1,10 +1,20 @@
-"""Plain-JSON rendering of result dataclasses (numbers in SI units).
+"""Plain-JSON rendering of result dataclasses, in SI units with unit-suffixed keys.
 
 Numbers stay numbers.  A value that is not a finite number (an infinite
 margin, an undefined ratio) becomes ``null`` in place, and the document gets a
 top-level list ``non_finite`` that says, for each such place (a JSON Pointer,
 RFC 6901), what the value was and what it means, so no information is lost
 and every numeric array stays an array of numbers or nulls.
+
+SI throughout: the in-memory results keep the display units engineers read
+(delay margins in ms, angles in degrees); :func:`plain_document` converts
+them on the way out.  A key ending in ``_ms`` becomes ``_s`` and one ending in
+``_deg`` becomes ``_rad`` (value scaled); a record with a ``unit`` field in
+``ms``, ``deg`` or ``deg/s`` has its value fields scaled and its unit rewritten;
+per-metric maps (``corner_values``) get the unit suffix in the key.  Gain
+levels stay in decibels (``_db``, unit ``dB``): the decibel is accepted for
+use with the SI (SI Brochure, 9th edition, Table 8), and a margin in dB is a
+difference of levels, which a ratio would not be.
 """
 
 from __future__ import annotations
@@ -12,6 +22,7 @@ from __future__ import annotations
 import dataclasses
 import json
 import math
+import re
 from typing import Any
 
 import numpy as np
@@ -27,13 +38,15 @@ def _pointer(path: tuple) -> str:
     return "".join("/" + str(p).replace("~", "~0").replace("/", "~1") for p in path)
 
 
-def to_plain(value: Any, _path: tuple = (), _sink: list | None = None) -> Any:
+def to_plain(value: Any, _path: tuple = (), _sink: list | None = None, *, keep_non_finite: bool = False) -> Any:
     """Convert dataclasses, arrays and complex numbers to JSON-ready values.
 
     Complex numbers become ``{"re": .., "im": ..}``; non-finite floats become
     ``None`` and, when ``_sink`` is a list, are recorded there as
-    ``(JSON Pointer, "inf" | "-inf" | "nan")``.
+    ``(JSON Pointer, "inf" | "-inf" | "nan")`` (kept as floats when ``keep_non_finite``).
     """
+    if keep_non_finite:
+        return _to_plain_raw(value)
     if dataclasses.is_dataclass(value) and not isinstance(value, type):
         return {f.name: to_plain(getattr(value, f.name), (*_path, f.name), _sink) for f in dataclasses.fields(value)}
     if isinstance(value, dict):
@@ -63,10 +76,134 @@ def to_plain(value: Any, _path: tuple = (), _sink: list | None = None) -> Any:
     return value
 
 
+def _to_plain_raw(value: Any) -> Any:
+    """:func:`to_plain` keeping non-finite floats as floats (for the unit pass, which may rename keys)."""
+    if dataclasses.is_dataclass(value) and not isinstance(value, type):
+        return {f.name: _to_plain_raw(getattr(value, f.name)) for f in dataclasses.fields(value)}
+    if isinstance(value, dict):
+        return {str(k): _to_plain_raw(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [_to_plain_raw(v) for v in value]
+    if isinstance(value, np.ndarray):
+        if value.dtype.kind in "biuf":
+            return value.tolist()
+        return _to_plain_raw(value.tolist())
+    if isinstance(value, (np.bool_, bool)):
+        return bool(value)
+    if isinstance(value, (np.integer, int)):
+        return int(value)
+    if isinstance(value, (complex, np.complexfloating)):
+        return {"re": float(value.real), "im": float(value.imag)}
+    if isinstance(value, (float, np.floating)):
+        return float(value)
+    return value
+
+
+# display unit -> (SI unit, factor); every conversion is a pure scaling, so margins (differences) stay coherent
+SI_UNITS = {"ms": ("s", 1e-3), "deg": ("rad", math.pi / 180.0), "deg/s": ("rad/s", math.pi / 180.0)}
+# key suffix -> (SI suffix, factor)
+SI_SUFFIXES = {"_ms": ("_s", 1e-3), "_deg": ("_rad", math.pi / 180.0)}
+# key suffix for a unit, used where a map is keyed by metric name (corner_values)
+UNIT_SUFFIX = {
+    "1/s": "_per_s",
+    "s": "_s",
+    "rad": "_rad",
+    "rad/s": "_rad_s",
+    "dB": "_db",
+    "-": "",
+    "N m": "_n_m",
+    "A": "_a",
+    "m/s": "_m_s",
+    "models": "",
+}
+# quantity keys named without a unit in the in-memory results, and the suffix they get
+KEY_SUFFIX = {"decay_rate": "_per_s", "unstable_pole": "_per_s", "torque_limit": "_n_m", "max_frequency": "_rad_s"}
+# the fields of a record with a ``unit`` that hold values in that unit (the rest are counts, fractions, points)
+VALUE_FIELDS = frozenset(
+    {"nominal", "worst", "threshold", "margin", "bound", "value", "median", "percentiles"}
+    | {"worst_corner", "worst_sample", "worst_search", "low", "high"}
+)
+_PERCENTILE = re.compile(r"p\d+(\.\d+)?$")
+
+
+def _scale(node: Any, factor: float) -> Any:
+    if isinstance(node, bool) or node is None:
+        return node
+    if isinstance(node, (int, float)):
+        return float(node) * factor
+    if isinstance(node, list):
+        return [_scale(v, factor) for v in node]
+    if isinstance(node, dict):
+        return {k: (_scale(v, factor) if k in VALUE_FIELDS or _PERCENTILE.match(k) else v) for k, v in node.items()}
+    return node
+
+
+def to_si(node: Any) -> Any:
+    """Rewrite a plain document in SI units with unit-suffixed keys (see the module text)."""
+    if isinstance(node, list):
+        return [to_si(v) for v in node]
+    if not isinstance(node, dict):
+        return node
+    out: dict = {}
+    unit = node.get("unit")
+    si = SI_UNITS.get(unit) if isinstance(unit, str) else None
+    units_of = {}
+    if isinstance(node.get("summaries"), list):
+        units_of = {s["name"]: s.get("unit") for s in node["summaries"] if isinstance(s, dict) and "name" in s}
+    for key, value in node.items():
+        new_key, new_value = key, value
+        for suffix, (si_suffix, factor) in SI_SUFFIXES.items():
+            if key.endswith(suffix):
+                new_key, new_value = key[: -len(suffix)] + si_suffix, _scale_any(value, factor)
+                break
+        if key in KEY_SUFFIX and not isinstance(value, (dict, str)):
+            new_key = key + KEY_SUFFIX[key]
+        if si is not None and key in VALUE_FIELDS:
+            new_value = _scale(value, si[1])
+        if si is not None and key == "unit":
+            new_value = si[0]
+        if key == "corner_values" and isinstance(value, dict) and units_of:
+            new_value = {}
+            for name, values in value.items():
+                u = units_of.get(name)
+                conv = SI_UNITS.get(u)
+                u_si = conv[0] if conv else u
+                new_value[name + UNIT_SUFFIX.get(u_si, "")] = _scale_any(values, conv[1]) if conv else values
+        out[new_key] = to_si(new_value) if new_value is value else _si_children(new_value)
+    return out
+
+
+def _si_children(value: Any) -> Any:
+    return to_si(value) if isinstance(value, (dict, list)) else value
+
+
+def _scale_any(node: Any, factor: float) -> Any:
+    """Scale every number in ``node`` (a number or a list of them)."""
+    if isinstance(node, bool) or node is None:
+        return node
+    if isinstance(node, (int, float)):
+        return float(node) * factor
+    if isinstance(node, list):
+        return [_scale_any(v, factor) for v in node]
+    return node
+
+
+def _nullify(node: Any, path: tuple, sink: list) -> Any:
+    if isinstance(node, dict):
+        return {k: _nullify(v, (*path, k), sink) for k, v in node.items()}
+    if isinstance(node, list):
+        return [_nullify(v, (*path, i), sink) for i, v in enumerate(node)]
+    if isinstance(node, float) and not math.isfinite(node):
+        sink.append((_pointer(path), "nan" if math.isnan(node) else ("inf" if node > 0 else "-inf")))
+        return None
+    return node
+
+
 def plain_document(value: Any) -> Any:
-    """:func:`to_plain`, plus the top-level ``non_finite`` list when ``value`` renders as an object."""
+    """:func:`to_plain` in SI units (:func:`to_si`), plus the top-level ``non_finite`` list when ``value``
+    renders as an object."""
     sink: list = []
-    doc = to_plain(value, (), sink)
+    doc = _nullify(to_si(_to_plain_raw(value)), (), sink)
     if isinstance(doc, dict):
         doc["non_finite"] = [{"path": p, "value": v, "meaning": MEANINGS[v]} for p, v in sink]
     return doc
