@@ -93,6 +93,7 @@ class Case:
     synthesis: dict = field(default_factory=dict)
     default_manoeuvres: bool = False
     tuning: dict = field(default_factory=dict)
+    front: dict = field(default_factory=dict)
 
     @property
     def vehicle(self) -> Vehicle:
@@ -114,6 +115,7 @@ TOP_KEYS = (
     "manoeuvres",
     "synthesis",
     "tuning",
+    "front",
 )
 SYNTHESIS_KEYS = {
     "name": ("text", None),
@@ -394,6 +396,7 @@ def parse_case(text: str, *, source: str = "<text>") -> Case:
         synthesis=_synthesis(doc),
         default_manoeuvres=defaults,
         tuning=_tuning(doc),
+        front=_front(doc),
     )
 
 
@@ -424,6 +427,43 @@ def _tuning(doc: dict) -> dict:
     if unknown:
         raise CaseError(f"'tuning.starts': unknown gain set {unknown[0]!r}; the case defines: {', '.join(names)}")
     out["starts"] = list(starts)
+    return out
+
+
+FRONT_KEYS = ("sweep", "objective", "factors", "evaluations")
+
+
+def _front(doc: dict) -> dict:
+    """``[front]``: the trade-off front the dossier draws (``sweep``, ``objective``, ``factors``,
+    ``evaluations``); needs ``[tuning]`` (the front starts from the tuned gain)."""
+    from robust.verdict import LABELS, STABILITY
+
+    if "front" not in doc:
+        return {}
+    ft = _table(doc, "front", "", required=False)
+    _check_keys(ft, list(FRONT_KEYS), "front")
+    if "tuning" not in doc:
+        raise CaseError("'front': needs [tuning] in the same case (the front starts from the tuned gain)")
+    req = _table(doc, "requirements", "", required=False)
+    keys = [k for k in LABELS if k != STABILITY]
+    out: dict = {}
+    for key in ("sweep", "objective"):
+        value = _text(ft, key, "front")
+        if value not in LABELS or (key == "sweep" and value == STABILITY):
+            raise CaseError(f"'front.{key}': expected a requirement key ({', '.join(keys)}), got {value!r}")
+        out[key] = value
+    if out["sweep"] not in req:
+        raise CaseError(f"'front.sweep': {out['sweep']!r} is not under [requirements]; the front scales its bound")
+    if out["sweep"] == out["objective"]:
+        raise CaseError("'front.objective': expected a requirement other than front.sweep")
+    out["factors"] = _number_list(ft, "factors", "front", "-", None) if "factors" in ft else [0.6, 0.8, 1.0, 1.25, 1.5]
+    if not 1 <= len(out["factors"]) <= 12 or min(out["factors"]) <= 0:
+        raise CaseError(
+            f"'front.factors': expected 1 to 12 positive multipliers of the case bound, got {out['factors']}"
+        )
+    out["evaluations"] = _integer(ft, "evaluations", "front", default=60, low=10)
+    if out["evaluations"] > 2000:
+        raise CaseError(f"'front.evaluations': expected at most 2000, got {out['evaluations']}")
     return out
 
 

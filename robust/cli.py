@@ -165,15 +165,68 @@ def _tune(args: argparse.Namespace, progress) -> int:
     gain = GainSet(r.gain.name, r.gain.K, r.gain.origin, r.gain.provenance | {"caution": CAUTION, "verdict": verdict})
     write_gain_file(target.path, gain)
     progress(f"gain written to {target.path}")
+    nearest = []
+    if not v.passed:  # an infeasible request: answer with the nearest reachable value of what failed
+        from robust.synthesis.front import best_achievable
+        from robust.verdict import NO_FALL, STABILITY
+
+        for key in v.failing:
+            if key in (NO_FALL, STABILITY) or key not in case.requirements:
+                continue
+            progress(f"nearest reachable point: best worst-case value of {key} with the others kept")
+            nearest.append((key, best_achievable(case, key, r.gain.K, evaluations=max(60, evaluations // 2))))
     if args.json:
-        _emit(dumps({"tuning": r, "check": a.check, "time": a.time, "verdicts": a.verdicts}))
+        doc = {"tuning": r, "check": a.check, "time": a.time, "verdicts": a.verdicts}
+        doc["nearest_reachable"] = [{"requirement": k, "point": p} for k, p in nearest]
+        _emit(dumps(doc))
     else:
+        from robust.report.text import nearest_text
+
         head = (
             f"Robust tuning: {r.iterations} rounds, {r.scenarios} scenario models, smallest normalised margin on "
             f"the scenarios {r.score:.3g}; gain written to {target.path}\n\n"
         )
-        _emit(head + assessment_text(case, a, view="compare"))
+        _emit(head + assessment_text(case, a, view="compare") + nearest_text(case, nearest))
     return 0 if v.passed else 1
+
+
+def _front(args: argparse.Namespace, progress) -> int:
+    from robust.case import CaseError, load_case
+    from robust.report.jsonout import dumps
+    from robust.report.text import front_text
+    from robust.synthesis.front import DEFAULT_FACTORS, trade_off
+
+    case = load_case(args.case)
+    if not case.box.ranges:
+        raise CaseError(f"{args.case}: no [ranges]: with one nominal vehicle there is no robust trade-off")
+    sweep = args.sweep or case.front.get("sweep")
+    objective = args.objective or case.front.get("objective")
+    if not sweep or not objective:
+        raise CaseError(f"{args.case}: give --sweep and --objective (requirement keys) or a [front] table")
+    starts = _gain_sets(case, args.gain, args.gain_file)
+    start = starts[0]
+    if args.bounds:
+        bounds = list(args.bounds)
+    else:
+        if sweep not in case.requirements:
+            raise CaseError(f"--sweep {sweep}: not under [requirements] of {args.case}; give --bounds")
+        factors = case.front.get("factors", DEFAULT_FACTORS)
+        bounds = [case.requirements[sweep] * f for f in factors]
+    evaluations = args.evaluations or case.front.get("evaluations", 60)
+    try:
+        fr = trade_off(
+            case,
+            start.K,
+            sweep=sweep,
+            objective=objective,
+            bounds=bounds,
+            evaluations=evaluations,
+            progress=progress,
+        )
+    except ValueError as exc:
+        raise CaseError(str(exc)) from None
+    _emit(dumps({"front": fr, "start": start.name}) if args.json else front_text(fr, start.name))
+    return 0
 
 
 def _sensitivity(args: argparse.Namespace, progress) -> int:
@@ -377,6 +430,25 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--quiet", action="store_true", help="no progress messages")
     p.add_argument("--json", action="store_true", help="print JSON instead of text")
     p.set_defaults(func=_tune)
+
+    p = sub.add_parser(
+        "front",
+        help="trade-off front: the best worst-case value of one requirement for each bound on another",
+    )
+    _gain_options(
+        p,
+        case_help="case gain set to start the sweep from (the first given; default the case's first)",
+        file_help="gain file to start from (repeatable; the first gain set given is used)",
+    )
+    p.add_argument("--sweep", metavar="KEY", help="requirement whose bound is swept (default [front] sweep)")
+    p.add_argument("--objective", metavar="KEY", help="requirement to maximise (default [front] objective)")
+    p.add_argument(
+        "--bounds", type=float, nargs="+", metavar="B", help="bounds to sweep (default: case bound x [front] factors)"
+    )
+    p.add_argument("--evaluations", type=_positive_int, help="optimiser evaluations per point (default 60)")
+    p.add_argument("--quiet", action="store_true", help="no progress messages")
+    p.add_argument("--json", action="store_true", help="print JSON instead of text")
+    p.set_defaults(func=_front)
 
     p = sub.add_parser(
         "dossier",

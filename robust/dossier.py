@@ -56,6 +56,7 @@ class DossierData:
     loop_frequencies: np.ndarray | None = None
     loop_shapes: dict[str, dict[str, np.ndarray]] | None = None
     sampled_decay: dict[str, np.ndarray] | None = None  # decay rate of the sampled loop per model [1/s]
+    front: object | None = None  # robust.synthesis.front.Front, when the case asks for [front]
 
 
 LOOP_SHAPE_MODELS = 400  # models (corners first) whose loop shapes are drawn as bands
@@ -148,6 +149,21 @@ def run_dossier(
             progress=progress,
         )
         gains = [tuning.gain, *gains]
+    front = None
+    if tuning is not None and case.front:
+        from robust.synthesis.front import trade_off
+
+        fr = case.front
+        bound = case.requirements[fr["sweep"]]
+        front = trade_off(
+            case,
+            tuning.gain.K,
+            sweep=fr["sweep"],
+            objective=fr["objective"],
+            bounds=[bound * f for f in fr["factors"]],
+            evaluations=fr["evaluations"],
+            progress=progress,
+        )
     if not gains:
         raise ValueError("the dossier needs at least one gain set: add [gains.NAME], [synthesis] or a gain file")
     if tuning is not None and tuning.assessment is not None and len(gains) > 1:
@@ -207,6 +223,7 @@ def run_dossier(
         loop_frequencies=freqs,
         loop_shapes=shapes,
         sampled_decay=sampled,
+        front=front,
         stamp=stamp(case),
         facts=facts,
         check=check,

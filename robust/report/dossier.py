@@ -481,6 +481,8 @@ def _blocks(d, today: str) -> tuple[list, list[Figure]]:
                 "tuning_rounds",
             )
         )
+    if getattr(d, "front", None) is not None:
+        B += front_blocks(d.front)
     # per gain set
     stems = file_stems(g.gain.name for g in chk.gains)
     for gi, g in enumerate(chk.gains):
@@ -684,6 +686,51 @@ def _blocks(d, today: str) -> tuple[list, list[Figure]]:
     return B, figs
 
 
+def front_blocks(fr) -> list:
+    """The section "What each requirement costs": the trade-off front as a table."""
+    from robust.verdict import LABELS
+
+    sw, ob = LABELS.get(fr.swept, fr.swept), LABELS.get(fr.objective, fr.objective)
+    B = [_h(2, "What each requirement costs (trade-off front)")]
+    B.append(
+        _p(
+            f"For each bound on the {sw} (the case's bound times the factors of [front]), the best worst-case "
+            f"{ob} a mirror-symmetric gain reaches while every other requirement of the case holds. Method: "
+            f"{fr.method}. Two cautions: the values are worst cases over the scenario models, so the whole box "
+            "can be worse; and they are what a local search reached, so a better gain can exist. A point's gain "
+            "is not one of the dossier's gain sets and has no verdict of its own."
+        )
+    )
+    rows = []
+    for p in sorted(fr.points, key=lambda p: p.bound):
+        rows.append(
+            [
+                fmt(p.bound),
+                fmt(p.best),
+                "yes" if p.feasible else "NO",
+                p.limiting,
+                fmt(p.smallest_other_margin),
+                ", ".join(fmt(x, 5) for x in p.K[0]),
+            ]
+        )
+    B.append(
+        Table(
+            f"Best worst-case {ob} [{fr.objective_unit}] against the {sw} bound [{fr.swept_unit}]",
+            [
+                f"{sw} bound [{fr.swept_unit}]",
+                f"best {ob} [{fr.objective_unit}]",
+                "others met",
+                "limiting requirement",
+                "its normalised margin",
+                "gain (left row; right row mirrored)",
+            ],
+            rows,
+            "trade_off_front",
+        )
+    )
+    return B
+
+
 def figure_plan(d) -> list[tuple[str, str, object]]:
     """The dossier's figures as ``(name, caption, factory)``; each factory draws a new Figure.
 
@@ -767,6 +814,17 @@ def figure_plan(d) -> list[tuple[str, str, object]]:
                         ),
                     )
                 )
+    if getattr(d, "front", None) is not None:
+        from robust.verdict import LABELS
+
+        plan.append(
+            (
+                "trade_off_front",
+                "The trade-off front: best worst-case value of the objective against the swept bound (scenario "
+                "models; filled markers where every other requirement holds).",
+                lambda: F.trade_off_front(d.front, LABELS),
+            )
+        )
     return plan
 
 
@@ -924,6 +982,7 @@ def _write_files(d, target: FolderTarget, blocks, figs, today: str) -> None:
             "synthesis_error": d.design_error,
             "verdicts": d.verdicts,
             "tuning": _tuning_for_json(getattr(d, "tuning", None)),
+            "front": getattr(d, "front", None),
             "inputs": [{"file": i.name, "origin": i.origin, "sha256": i.sha256} for i in getattr(d, "inputs", ())],
         }
         (tmp / "results.json").write_text(dumps(results), encoding="utf-8")

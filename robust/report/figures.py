@@ -285,3 +285,28 @@ def worst_locations(
     ax.grid(True, lw=0.3)
     fig.tight_layout()
     return fig
+
+
+def trade_off_front(front, labels: dict[str, str]) -> Figure:
+    """The best worst-case value of the objective against the swept bound: filled markers where every other
+    requirement holds on the scenarios, open ones where some does not; the case's own bounds as limit lines."""
+    fig, ax = plt.subplots(figsize=(6.4, 3.8))
+    pts = sorted(front.points, key=lambda p: p.bound)
+    b = np.array([p.bound for p in pts])
+    v = np.array([p.best for p in pts])
+    ok = np.array([p.feasible for p in pts])
+    ax.plot(b, v, "-", color=PALETTE[0], lw=1.2)
+    ax.plot(b[ok], v[ok], "o", color=PALETTE[0], label="every other requirement met (scenarios)")
+    if (~ok).any():
+        ax.plot(b[~ok], v[~ok], "o", mfc="white", color=PALETTE[1], label="some other requirement not met")
+    if front.case_bound is not None:
+        ax.axvline(front.case_bound, color=LIMIT_COLOUR, lw=0.8, ls="-.", label="the case's bound (swept)")
+    if front.objective_bound is not None:
+        ax.axhline(front.objective_bound, color=LIMIT_COLOUR, lw=0.8, ls=":", label="the case's bound (objective)")
+    ax.set_xlabel(f"{labels.get(front.swept, front.swept)} bound [{front.swept_unit}]")
+    ax.set_ylabel(f"best worst-case {labels.get(front.objective, front.objective)} [{front.objective_unit}]")
+    ax.grid(True)
+    ax.legend(fontsize=7, loc="best")
+    ax.set_title("What the swept requirement costs", fontsize=9)
+    fig.tight_layout()
+    return fig

@@ -654,3 +654,46 @@ def sensitivity_text(case, results) -> str:
         ]
         out.append(table(["tolerance", "first order", "total"], rows))
     return "\n".join(out) + "\n"
+
+
+def front_text(fr, start: str) -> str:
+    """The trade-off front as a plain table, with what it means and does not mean."""
+    from robust.verdict import LABELS
+
+    sw, ob = LABELS.get(fr.swept, fr.swept), LABELS.get(fr.objective, fr.objective)
+    lines = [
+        f"Trade-off front: best worst-case {ob} [{fr.objective_unit}] for each {sw} bound [{fr.swept_unit}]",
+        f"  started from '{start}'; {fr.method}",
+        "",
+        f"  {'bound':>10}  {'best':>10}  {'others met':>10}  limiting requirement (normalised margin)",
+    ]
+    for p in sorted(fr.points, key=lambda p: p.bound):
+        lines.append(
+            f"  {p.bound:>10.4g}  {p.best:>10.4g}  {'yes' if p.feasible else 'NO':>10}  "
+            f"{p.limiting} ({p.smallest_other_margin:.3g})"
+        )
+    lines += [
+        "",
+        "  Values are worst cases over the scenario models (the whole box can be worse) reached by a local",
+        "  search (a better gain can exist). No point is a checked gain set: check it before use.",
+    ]
+    return "\n".join(lines) + "\n"
+
+
+def nearest_text(case, nearest: list) -> str:
+    """For a tuning that failed: the nearest reachable value of each failing requirement."""
+    if not nearest:
+        return ""
+    from robust.verdict import LABELS
+
+    lines = [
+        "",
+        "Nearest reachable point (no tuned gain met every requirement): for each failing requirement, the best",
+        "worst-case value a mirror-symmetric gain reached on the scenario models with every other requirement kept",
+    ]
+    for key, p in nearest:
+        lines.append(
+            f"  {LABELS.get(key, key)}: best {p.best:.4g} against the required {case.requirements[key]:.4g}; "
+            f"others met: {'yes' if p.feasible else 'NO, ' + p.limiting + f' ({p.smallest_other_margin:.3g})'}"
+        )
+    return "\n".join(lines) + "\n"

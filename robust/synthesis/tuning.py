@@ -96,12 +96,16 @@ class _Scorer:
 
         case, ctl, req = self.case, self.case.controller, self.case.requirements
         out: dict[str, float] = {}
+        worst_of: dict[str, tuple[float, str]] = {}
+        self.worst = worst_of  # the worst value of each margin's metric, in the requirement's unit
         lin = evaluate(case.box, self.points, K, names=tuple({"decay_rate", *(n for n, _m, _b in self.linear)}))
         out["closed_loop_stable"] = float(np.min(lin["decay_rate"])) / 0.1
+        worst_of["closed_loop_stable"] = (float(np.min(lin["decay_rate"])), "1/s")
         for name, m, bound in self.linear:
             v = lin[name]
             worst = float(np.min(v)) if m.kind == "min" else float(np.max(v))
             margin = worst - bound if m.kind == "min" else bound - worst
+            worst_of[f"{m.requirement}:{name}"] = (worst, m.unit)
             out[f"{m.requirement}:{name}"] = margin / _scale(bound, m.unit) if np.isfinite(margin) else 1.0
         if out["closed_loop_stable"] <= 0:  # unstable somewhere: the time domain says nothing more useful
             return out
@@ -143,6 +147,7 @@ class _Scorer:
         ):
             if key in req and values:
                 worst = float(max(values))
+                worst_of[key] = (worst, unit)
                 out[key] = (req[key] - worst) / _scale(req[key], unit) if np.isfinite(worst) else -10.0
         for key, (M, upper), unit in (
             ("min_speed_step_within_limits_m_s", self.probes[0], "m/s"),
@@ -153,6 +158,7 @@ class _Scorer:
                     self.P0, Ks, M, ctl, upper=np.full(self.n, upper), rounds=3, points_per_round=5
                 )
                 out[key] = (float(lo.min()) - req[key]) / _scale(req[key], unit)
+                worst_of[key] = (float(lo.min()), unit)
         return out
 
 
