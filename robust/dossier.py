@@ -57,6 +57,8 @@ class DossierData:
     loop_shapes: dict[str, dict[str, np.ndarray]] | None = None
     sampled_decay: dict[str, np.ndarray] | None = None  # decay rate of the sampled loop per model [1/s]
     front: object | None = None  # robust.synthesis.front.Front, when the case asks for [front]
+    sampled_margins: dict[str, dict[str, np.ndarray]] | None = None  # per gain set, arrays (models, 2 wheels)
+    period_sweep: dict[str, list[dict]] | None = None  # per gain set, one row per sample period tried
 
 
 LOOP_SHAPE_MODELS = 400  # models (corners first) whose loop shapes are drawn as bands
@@ -202,6 +204,7 @@ def run_dossier(
     shapes = {g.name: loop_shapes(model.A[few], model.B[few], g.K, freqs) for g in gains}
     ctl = case.controller
     sampled = {g.name: sampled_decay_rate(model.A, model.B, g.K, ctl.sample_period_s, ctl.latency_s) for g in gains}
+    sampled_margins, period_sweep = _sampled_studies(case, model, few, gains)
     inputs = []
     if Path(case.source).is_file():
         content = Path(case.source).read_bytes()
@@ -223,6 +226,8 @@ def run_dossier(
         loop_frequencies=freqs,
         loop_shapes=shapes,
         sampled_decay=sampled,
+        sampled_margins=sampled_margins,
+        period_sweep=period_sweep,
         front=front,
         stamp=stamp(case),
         facts=facts,
@@ -235,6 +240,47 @@ def run_dossier(
         eigenvalues=eigs,
         sample_values=values,
     )
+
+
+PERIOD_FACTORS = (0.5, 1.0, 2.0, 4.0, 8.0)  # sample periods tried, times the case's (latency scaled alike)
+
+
+def _sampled_studies(case: Case, model, few: slice, gains) -> tuple[dict, dict]:
+    """Margins of the sampled loop at the case's period and latency (the loop-shape models), and the sweep of
+    the sample period (latency the same fraction of the period) with the requirements each period loses."""
+    from robust.analysis.sampled import sampled_decay_rate, sampled_loop_margins
+
+    ctl, req = case.controller, case.requirements
+    A, B = model.A[few], model.B[few]
+    margins = {g.name: sampled_loop_margins(A, B, g.K, ctl.sample_period_s, ctl.latency_s) for g in gains}
+    frac = ctl.latency_s / ctl.sample_period_s
+    sweep: dict[str, list[dict]] = {}
+    for g in gains:
+        rows = []
+        for f in PERIOD_FACTORS:
+            T = ctl.sample_period_s * f
+            m = margins[g.name] if f == 1.0 else sampled_loop_margins(A, B, g.K, T, frac * T)
+            row = {
+                "period_s": T,
+                "latency_s": frac * T,
+                "decay_rate_per_s": float(sampled_decay_rate(A, B, g.K, T, frac * T).min()),
+                "phase_margin_deg": float(m["phase_margin_deg"].min()),
+                "delay_margin_s": float(m["delay_margin_s"].min()),
+                "disk_margin": float(m["disk_margin"].min()),
+                "gain_margin_db": float(np.minimum(m["gain_margin_up_db"], m["gain_margin_down_db"]).min()),
+            }
+            checks = (
+                ("closed_loop_stable", row["decay_rate_per_s"], 0.0),
+                ("min_decay_rate_per_s", row["decay_rate_per_s"], req.get("min_decay_rate_per_s")),
+                ("min_phase_margin_deg", row["phase_margin_deg"], req.get("min_phase_margin_deg")),
+                ("min_delay_margin_ms", 1e3 * row["delay_margin_s"], req.get("min_delay_margin_ms")),
+                ("min_disk_margin", row["disk_margin"], req.get("min_disk_margin")),
+                ("min_gain_margin_db", row["gain_margin_db"], req.get("min_gain_margin_db")),
+            )
+            row["lost"] = [k for k, v, b in checks if b is not None and not v > b]
+            rows.append(row)
+        sweep[g.name] = rows
+    return margins, sweep
 
 
 def today() -> str:

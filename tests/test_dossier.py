@@ -293,3 +293,22 @@ def test_results_are_si_with_unit_suffixed_keys(two_runs):
     data["check"]["gains"][0]["inputs"][0]["worst"]["delay_margin_ms"] = 1.0
     with pytest.raises(jsonschema.ValidationError):
         jsonschema.validate(data, schema, cls=jsonschema.Draft202012Validator)
+
+
+def test_sampled_loop_section_and_period_sweep(two_runs):
+    """The dossier sets the sampled loop's margins beside the continuous ones and sweeps the sample period;
+    the sweep's row at the case's own period repeats the margins table (one computation, two views), and a
+    longer period never shows a larger phase margin on this case (more hold delay, common practice)."""
+    a, _b, _ = two_runs
+    md = (a / "dossier.md").read_text()
+    assert "Margins, continuous / sampled (worst)" in md and "Sample period sweep" in md
+    data = json.loads((a / "results.json").read_text())
+    sweep = data["sampled_loop"]["period_sweep"]
+    margins = data["sampled_loop"]["margins"]
+    assert set(sweep) == {g["gain"]["name"] for g in data["check"]["gains"]}
+    for name, rows in sweep.items():
+        at_case = next(r for r in rows if r["period_s"] == data["time"]["sample_period_s"])
+        assert at_case["phase_margin_rad"] == min(min(r) for r in margins[name]["phase_margin_rad"])
+        pms = [r["phase_margin_rad"] for r in sorted(rows, key=lambda r: r["period_s"])]
+        assert all(b <= a_ + 1e-12 for a_, b in zip(pms, pms[1:]))
+        assert all(isinstance(r["lost"], list) for r in rows)

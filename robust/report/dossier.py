@@ -394,6 +394,7 @@ def _blocks(d, today: str) -> tuple[list, list[Figure]]:
                 "sampled_loop",
             )
         )
+        B += sampled_margin_blocks(d)
     B.append(_h(2, "Overall verdict of each gain set"))
     B.append(
         _p(
@@ -684,6 +685,92 @@ def _blocks(d, today: str) -> tuple[list, list[Figure]]:
         fig = make()  # drawn once: the same figure goes into the SVG files, the HTML and the PDF
         figs.append(Figure(name, F.svg(fig, close=False), caption, mpl=fig))
     return B, figs
+
+
+def _db(v: float) -> str:
+    return "unbounded" if v == np.inf else fmt(v)
+
+
+def sampled_margin_blocks(d) -> list:
+    """Margins of the sampled loop beside the continuous ones, and the sample-period sweep."""
+    sm, sweep = getattr(d, "sampled_margins", None), getattr(d, "period_sweep", None)
+    if not sm:
+        return []
+    from robust.verdict import LABELS
+
+    B = []
+    n = next(iter(sm.values()))["phase_margin_deg"].shape[0]
+    rows = []
+    for g in d.check.gains:
+        m = sm.get(g.gain.name)
+        if m is None:
+            continue
+        worst = {s_.name: s_.worst.value for s_ in g.summaries}
+        gm = np.minimum(m["gain_margin_up_db"], m["gain_margin_down_db"]).min()
+        cont_gm = min(worst.get("gain_margin_up", np.inf), worst.get("gain_margin_down", np.inf))
+        rows.append(
+            [
+                g.gain.name,
+                f"{fmt(worst.get('phase_margin', np.nan))} / {fmt(float(m['phase_margin_deg'].min()))}",
+                f"{fmt(worst.get('delay_margin', np.nan))} / {fmt(1e3 * float(m['delay_margin_s'].min()))}",
+                f"{_db(cont_gm)} / {_db(float(gm))}",
+                f"{fmt(worst.get('disk_margin', np.nan))} / {fmt(float(m['disk_margin'].min()))}",
+            ]
+        )
+    B.append(
+        _p(
+            "Loop-at-a-time margins of the sampled loop (one wheel input broken, the other loop closed; the "
+            "frequency response on the unit circle up to the Nyquist frequency, with the hold and the latency "
+            f"inside the loop), worst over the corners and the first {n} models, beside the continuous-time worst "
+            "case over all models. The sampled delay margin is the extra delay beyond the latency the loop "
+            "already has; sampling gives a finite upper gain margin where the continuous loop has none."
+        )
+    )
+    B.append(
+        Table(
+            "Margins, continuous / sampled (worst)",
+            ["gain set", "phase margin [deg]", "delay margin [ms]", "gain margin [dB]", "disk margin [-]"],
+            rows,
+            "sampled_margins",
+        )
+    )
+    if sweep:
+        rows = []
+        for name, rs in sweep.items():
+            for r in rs:
+                rows.append(
+                    [
+                        name,
+                        fmt(1e3 * r["period_s"]),
+                        fmt(1e3 * r["latency_s"]),
+                        fmt(r["decay_rate_per_s"]),
+                        fmt(r["phase_margin_deg"]),
+                        fmt(1e3 * r["delay_margin_s"]),
+                        _db(r["gain_margin_db"]),
+                        fmt(r["disk_margin"]),
+                        ", ".join(LABELS.get(k, k) for k in r["lost"]) or "none",
+                    ]
+                )
+        B.append(
+            Table(
+                "Sample period sweep: the sampled loop's worst case for each period (latency the same fraction of "
+                "the period as in the case); requirements lost against the case's bounds",
+                [
+                    "gain set",
+                    "period [ms]",
+                    "latency [ms]",
+                    "decay rate [1/s]",
+                    "phase margin [deg]",
+                    "delay margin [ms]",
+                    "gain margin [dB]",
+                    "disk margin [-]",
+                    "requirements lost",
+                ],
+                rows,
+                "period_sweep",
+            )
+        )
+    return B
 
 
 def front_blocks(fr) -> list:
@@ -983,6 +1070,10 @@ def _write_files(d, target: FolderTarget, blocks, figs, today: str) -> None:
             "verdicts": d.verdicts,
             "tuning": _tuning_for_json(getattr(d, "tuning", None)),
             "front": getattr(d, "front", None),
+            "sampled_loop": {
+                "margins": getattr(d, "sampled_margins", None),
+                "period_sweep": getattr(d, "period_sweep", None),
+            },
             "inputs": [{"file": i.name, "origin": i.origin, "sha256": i.sha256} for i in getattr(d, "inputs", ())],
         }
         (tmp / "results.json").write_text(dumps(results), encoding="utf-8")
