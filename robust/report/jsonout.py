@@ -126,14 +126,16 @@ VALUE_FIELDS = frozenset(
 _PERCENTILE = re.compile(r"p\d+(\.\d+)?$")
 
 
-def _scale(node: Any, factor: float) -> Any:
+def _scale(node: Any, factor: float, *, records: bool = True) -> Any:
+    """Scale the numbers in ``node`` (a number or a list of them); inside a dict (``records``) only the
+    :data:`VALUE_FIELDS` and percentiles, never counts or parameter points."""
     if isinstance(node, bool) or node is None:
         return node
     if isinstance(node, (int, float)):
         return float(node) * factor
     if isinstance(node, list):
-        return [_scale(v, factor) for v in node]
-    if isinstance(node, dict):
+        return [_scale(v, factor, records=records) for v in node]
+    if isinstance(node, dict) and records:
         return {k: (_scale(v, factor) if k in VALUE_FIELDS or _PERCENTILE.match(k) else v) for k, v in node.items()}
     return node
 
@@ -154,7 +156,7 @@ def to_si(node: Any) -> Any:
         new_key, new_value = key, value
         for suffix, (si_suffix, factor) in SI_SUFFIXES.items():
             if key.endswith(suffix):
-                new_key, new_value = key[: -len(suffix)] + si_suffix, _scale_any(value, factor)
+                new_key, new_value = key[: -len(suffix)] + si_suffix, _scale(value, factor, records=False)
                 break
         if key in KEY_SUFFIX and not isinstance(value, (dict, str)):
             new_key = key + KEY_SUFFIX[key]
@@ -168,24 +170,13 @@ def to_si(node: Any) -> Any:
                 u = units_of.get(name)
                 conv = SI_UNITS.get(u)
                 u_si = conv[0] if conv else u
-                new_value[name + UNIT_SUFFIX.get(u_si, "")] = _scale_any(values, conv[1]) if conv else values
+                new_value[name + UNIT_SUFFIX.get(u_si, "")] = _scale(values, conv[1], records=False) if conv else values
         out[new_key] = to_si(new_value) if new_value is value else _si_children(new_value)
     return out
 
 
 def _si_children(value: Any) -> Any:
     return to_si(value) if isinstance(value, (dict, list)) else value
-
-
-def _scale_any(node: Any, factor: float) -> Any:
-    """Scale every number in ``node`` (a number or a list of them)."""
-    if isinstance(node, bool) or node is None:
-        return node
-    if isinstance(node, (int, float)):
-        return float(node) * factor
-    if isinstance(node, list):
-        return [_scale_any(v, factor) for v in node]
-    return node
 
 
 def _nullify(node: Any, path: tuple, sink: list) -> Any:
