@@ -247,23 +247,29 @@ PERIOD_FACTORS = (0.5, 1.0, 2.0, 4.0, 8.0)  # sample periods tried, times the ca
 
 def _sampled_studies(case: Case, model, few: slice, gains) -> tuple[dict, dict]:
     """Margins of the sampled loop at the case's period and latency (the loop-shape models), and the sweep of
-    the sample period (latency the same fraction of the period) with the requirements each period loses."""
+    the sample period (latency the same fraction of the period; on the box corners, the case's own period on
+    every loop-shape model) with the requirements each period loses."""
     from robust.analysis.sampled import sampled_decay_rate, sampled_loop_margins
 
     ctl, req = case.controller, case.requirements
     A, B = model.A[few], model.B[few]
     margins = {g.name: sampled_loop_margins(A, B, g.K, ctl.sample_period_s, ctl.latency_s) for g in gains}
     frac = ctl.latency_s / ctl.sample_period_s
+    nc = len(corners(case.box))  # the sweep runs on the corners (the first models), the case's period on all
+    Ac, Bc = model.A[:nc], model.B[:nc]
     sweep: dict[str, list[dict]] = {}
     for g in gains:
         rows = []
         for f in PERIOD_FACTORS:
             T = ctl.sample_period_s * f
-            m = margins[g.name] if f == 1.0 else sampled_loop_margins(A, B, g.K, T, frac * T)
+            m = margins[g.name] if f == 1.0 else sampled_loop_margins(Ac, Bc, g.K, T, frac * T)
             row = {
                 "period_s": T,
                 "latency_s": frac * T,
-                "decay_rate_per_s": float(sampled_decay_rate(A, B, g.K, T, frac * T).min()),
+                "models": int(len(A) if f == 1.0 else nc),
+                "decay_rate_per_s": float(
+                    sampled_decay_rate(A if f == 1.0 else Ac, B if f == 1.0 else Bc, g.K, T, frac * T).min()
+                ),
                 "phase_margin_deg": float(m["phase_margin_deg"].min()),
                 "delay_margin_s": float(m["delay_margin_s"].min()),
                 "disk_margin": float(m["disk_margin"].min()),

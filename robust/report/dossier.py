@@ -742,6 +742,7 @@ def sampled_margin_blocks(d) -> list:
                     [
                         name,
                         fmt(1e3 * r["period_s"]),
+                        str(r["models"]),
                         fmt(1e3 * r["latency_s"]),
                         fmt(r["decay_rate_per_s"]),
                         fmt(r["phase_margin_deg"]),
@@ -754,10 +755,12 @@ def sampled_margin_blocks(d) -> list:
         B.append(
             Table(
                 "Sample period sweep: the sampled loop's worst case for each period (latency the same fraction of "
-                "the period as in the case); requirements lost against the case's bounds",
+                "the period as in the case; other periods on the box corners only); requirements lost against the "
+                "case's bounds",
                 [
                     "gain set",
                     "period [ms]",
+                    "models",
                     "latency [ms]",
                     "decay rate [1/s]",
                     "phase margin [deg]",

@@ -260,9 +260,46 @@ def _solve(prob: cp.Problem, effort: int = 0):
     return None, last or "no solver ran"
 
 
+# The problem of one (polytope, spec, delta) is built once and re-solved for every decay rate of a search:
+# the rate enters as a cvxpy Parameter (disciplined parametrized programming), so cvxpy compiles the vertex
+# LMIs once and each further solve only refills the rate.  Keyed by identity; the cache keeps the polytope
+# and spec alive, so an identity is never reused while its entry exists.
+_PROBLEMS: dict = {}
+_PROBLEMS_KEPT = 2
+
+
 def _common(poly: Polytope, spec: Spec, alpha: float, delta: float, effort: int = 0):
+    key = (id(poly), id(spec), float(delta))
+    entry = _PROBLEMS.get(key)
+    if entry is None or entry[0] is not poly or entry[1] is not spec:
+        entry = (poly, spec, _build_common(poly, spec, delta))
+        _PROBLEMS[key] = entry
+        while len(_PROBLEMS) > _PROBLEMS_KEPT:
+            _PROBLEMS.pop(next(iter(_PROBLEMS)))
+    prob, h = entry[2]
+    # the decay region, tightened as in _regions (a cost objective keeps it as asked: Q makes it strict)
+    h["two_alpha"].value = 2.0 * (alpha if spec.objective == "cost" else max(1.02 * alpha, alpha + 0.01))
+    solver, status = _solve(prob, effort)
+    if solver is None:
+        return None, status
+    n = 4
+    X1v, Yv = h["X1"].value, h["Y"].value
+    slack_vals = [(a.value, b.value) for a, b in h["slacks"]]
+    slack_vals = [(np.zeros((n, n)) if a is None else a, np.zeros((n, n)) if b is None else b) for a, b in slack_vals]
+    K_scaled = Yv @ np.linalg.inv(X1v)
+    K = h["spec"].input_scale * K_scaled @ np.diag(1.0 / h["spec"].state_scale)
+    gamma_v = float(h["gamma"].value) if h["gamma"] is not None else None
+    cert = _check_common(poly, h["spec"], alpha, X1v, Yv, slack_vals, delta, gamma_v)
+    value = float(prob.value)
+    return {"K": K, "solver": solver, "status": status, "certificate": cert, "value": value}, status
+
+
+def _build_common(poly: Polytope, spec: Spec, delta: float):
+    """The common-Lyapunov problem with the decay rate as a parameter; returns ``(problem, handles)``."""
     if spec.max_frequency is not None and not disk_supported(poly):
         spec = replace(spec, max_frequency=None)
+    two_alpha = cp.Parameter(name="two_alpha")
+    alpha = 0.0  # the other regions do not depend on the rate
     E, A, B = _scaled(poly, spec)
     n = 4
     X1 = cp.Variable((n, n), symmetric=True)
@@ -289,14 +326,14 @@ def _common(poly: Polytope, spec: Spec, alpha: float, delta: float, effort: int 
         cost_terms = (Qh, Rh)
     plain = disk_supported(poly)  # E = I: the classical region LMIs, no slack variables
     for i in range(A.shape[0]):
-        for (L, M), (X3, X4) in zip(regs, slacks):
+        for k, ((L, M), (X3, X4)) in enumerate(zip(regs, slacks)):
             if plain:
                 S = A[i] @ X1 + B[i] @ Y
-                blk = _kron_block(L, M, X1, S)
+                blk = two_alpha * X1 + S + S.T if k == 0 else _kron_block(L, M, X1, S)
                 pad = 0
             else:
                 S = cp.bmat([[X3, X4], [A[i] @ X1 + B[i] @ Y - E[i] @ X3, -E[i] @ X4]])
-                blk = _kron_block(L, M, Xbar, S)
+                blk = two_alpha * Xbar + S + S.T if k == 0 else _kron_block(L, M, Xbar, S)
                 pad = n
             size = blk.shape[0]
             if cost_terms is not None and L.shape[0] == 1:
@@ -326,18 +363,15 @@ def _common(poly: Polytope, spec: Spec, alpha: float, delta: float, effort: int 
     else:
         cons.append(X1 >> np.eye(n) * (delta if extra else 1.0))
     prob = cp.Problem(cp.Minimize(obj), cons)
-    solver, status = _solve(prob, effort)
-    if solver is None:
-        return None, status
-    X1v, Yv = X1.value, Y.value
-    slack_vals = [(a.value, b.value) for a, b in slacks]
-    slack_vals = [(np.zeros((n, n)) if a is None else a, np.zeros((n, n)) if b is None else b) for a, b in slack_vals]
-    K_scaled = Yv @ np.linalg.inv(X1v)
-    K = spec.input_scale * K_scaled @ np.diag(1.0 / spec.state_scale)
-    gamma_v = float(gamma.value) if spec.objective == "cost" else None
-    cert = _check_common(poly, spec, alpha, X1v, Yv, slack_vals, delta, gamma_v)
-    value = float(prob.value)
-    return {"K": K, "solver": solver, "status": status, "certificate": cert, "value": value}, status
+    handles = {
+        "two_alpha": two_alpha,
+        "X1": X1,
+        "Y": Y,
+        "slacks": slacks,
+        "gamma": gamma if spec.objective == "cost" else None,
+        "spec": spec,
+    }
+    return prob, handles
 
 
 def _ellipsoid_constraints(spec: Spec, X1, Y, cons) -> bool:
