@@ -59,6 +59,7 @@ class DossierData:
     front: object | None = None  # robust.synthesis.front.Front, when the case asks for [front]
     sampled_margins: dict[str, dict[str, np.ndarray]] | None = None  # per gain set, arrays (models, 2 wheels)
     period_sweep: dict[str, list[dict]] | None = None  # per gain set, one row per sample period tried
+    tolerances: dict[str, list[dict]] | None = None  # per gain set: which tolerance drives which requirement
 
 
 LOOP_SHAPE_MODELS = 400  # models (corners first) whose loop shapes are drawn as bands
@@ -205,6 +206,7 @@ def run_dossier(
     ctl = case.controller
     sampled = {g.name: sampled_decay_rate(model.A, model.B, g.K, ctl.sample_period_s, ctl.latency_s) for g in gains}
     sampled_margins, period_sweep = _sampled_studies(case, model, few, gains)
+    tolerances = _tolerance_studies(case, gains, a.verdicts, pts[len(corners(case.box)) :]) if case.box.ranges else {}
     inputs = []
     if Path(case.source).is_file():
         content = Path(case.source).read_bytes()
@@ -228,6 +230,7 @@ def run_dossier(
         sampled_decay=sampled,
         sampled_margins=sampled_margins,
         period_sweep=period_sweep,
+        tolerances=tolerances,
         front=front,
         stamp=stamp(case),
         facts=facts,
@@ -240,6 +243,77 @@ def run_dossier(
         eigenvalues=eigs,
         sample_values=values,
     )
+
+
+def _tolerance_studies(case: Case, gains, verdicts, samples: np.ndarray) -> dict[str, list[dict]]:
+    """For each gain set, the linear requirements it fails (or, when it fails none, its tightest one): Sobol
+    indices of the metric over the box and the failure fraction per sub-range of each parameter on the
+    check's Monte Carlo samples.  Failing time-domain requirements are listed as not ranked."""
+    from robust.analysis.metrics import METRICS
+    from robust.analysis.sensitivity import SOBOL_BASE_SAMPLES, conditional_failure, sobol_indices
+    from robust.verdict import margin_scale
+
+    out: dict[str, list[dict]] = {}
+    by_gain = {v.gain: v for v in verdicts}
+    for g in gains:
+        v = by_gain.get(g.name)
+        if v is None:
+            continue
+        evaluated = [o for o in v.outcomes if o.margin is not None and o.status != "not evaluated"]
+        chosen = [o for o in evaluated if o.status == "fail"]
+        if not chosen and evaluated:
+            lin = [o for o in evaluated if o.domain == "linear" and o.key != "closed_loop_stable"]
+            if lin:
+                chosen = [min(lin, key=lambda o: o.margin / margin_scale(o.bound or 0.0, o.unit))]
+        rows = []
+        for o in chosen:
+            metrics = [n for n, m in METRICS.items() if m.requirement == o.key]
+            if o.key == "closed_loop_stable":
+                metrics = ["decay_rate"]
+            if o.domain != "linear" or not metrics:
+                rows.append(
+                    {
+                        "requirement": o.key,
+                        "metric": None,
+                        "sobol": None,
+                        "conditional": None,
+                        "why": "time-domain requirement: a ranking needs N (k + 2) simulations per manoeuvre; "
+                        "not run in the dossier (the worst-location figure shows where it fails)",
+                    }
+                )
+                continue
+            bound = case.requirements.get(o.key, 0.0)
+            for name in metrics:
+                kind = METRICS[name].kind
+                y = evaluate(case.box, samples, g.K, names=(name,))[name]
+                failed = (
+                    (y <= bound) if o.key == "closed_loop_stable" else ((y < bound) if kind == "min" else (y > bound))
+                )
+                cond = conditional_failure(case.box, samples, failed, name, confidence=case.study.confidence)
+                try:
+                    sob = sobol_indices(
+                        case.box,
+                        g.K,
+                        name,
+                        base_samples=SOBOL_BASE_SAMPLES,
+                        seed=case.study.seed,
+                        confidence=case.study.confidence,
+                    )
+                    why = ""
+                except ValueError as exc:
+                    sob, why = None, str(exc)
+                rows.append(
+                    {
+                        "requirement": o.key,
+                        "metric": name,
+                        "sobol": sob,
+                        "conditional": cond,
+                        "why": why,
+                        "status": o.status,
+                    }
+                )
+        out[g.name] = rows
+    return out
 
 
 PERIOD_FACTORS = (0.5, 1.0, 2.0, 4.0, 8.0)  # sample periods tried, times the case's (latency scaled alike)

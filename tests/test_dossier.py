@@ -314,3 +314,26 @@ def test_sampled_loop_section_and_period_sweep(two_runs):
         pms = [r["phase_margin_rad"] for r in sorted(corner_rows, key=lambda r: r["period_s"])]
         assert all(b <= a_ + 1e-12 for a_, b in zip(pms, pms[1:]))
         assert all(isinstance(r["lost"], list) for r in rows)
+
+
+def test_tolerance_section_matches_the_check(two_runs):
+    """Every gain set gets a tolerance ranking; the failures counted per sub-range of any parameter add up
+    to the check's own count of failing samples for that requirement (the same samples, counted apart)."""
+    a, _b, _ = two_runs
+    md = (a / "dossier.md").read_text()
+    assert "## Which tolerance drives each requirement" in md
+    data = json.loads((a / "results.json").read_text())
+    tol = data["tolerances"]
+    assert set(tol) == {g["gain"]["name"] for g in data["check"]["gains"]}
+    verdicts = {v["gain"]: {o["key"]: o for o in v["outcomes"]} for v in data["verdicts"]}
+    for name, rows in tol.items():
+        assert rows
+        for r in rows:
+            if r["metric"] is None:
+                continue
+            cond = r["conditional"]
+            assert all(sum(row) == data["check"]["samples"] for row in cond["samples"])
+            failing = verdicts[name][r["requirement"]]["failing"]  # "f of n samples"
+            assert all(sum(row) == int(failing.split(" of ")[0]) for row in cond["failures"])
+            sob = r["sobol"]
+            assert sob is None or (len(sob["first_order"]) == len(cond["parameters"]) and sob["evaluations"] > 0)

@@ -65,3 +65,26 @@ def test_sensitivity_command(capsys):
     assert main(["sensitivity", str(small), "--samples", "64", "--quiet"]) == 0
     out = capsys.readouterr().out
     assert "rider or cargo mass [kg]" in out and max(len(ln) for ln in out.splitlines()) <= 100
+
+
+def test_conditional_failure_counts_by_hand_and_bounds_by_scipy(cart):
+    """Counts per sub-range equal a direct count; the upper bound is the Clopper-Pearson bound computed from
+    scipy's beta quantile (Clopper and Pearson 1934: upper = Beta(1 - (1 - c) / 2; f + 1, n - f))."""
+    from scipy.stats import beta
+
+    from robust.analysis.sensitivity import conditional_failure
+
+    box = cart.box
+    rng = np.random.default_rng(5)
+    pts = box.low + rng.random((2000, len(box.names))) * (box.high - box.low)
+    failed = pts[:, 0] > box.low[0] + 0.7 * (box.high[0] - box.low[0])  # failures only in the top of range 0
+    cf = conditional_failure(box, pts, failed, "made_up", bins=4)
+    for b in range(4):
+        lo, hi = cf.edges[0, b], cf.edges[0, b + 1]
+        inside = (pts[:, 0] >= lo) & ((pts[:, 0] < hi) | (b == 3))
+        assert cf.samples[0, b] == inside.sum() and cf.failures[0, b] == failed[inside].sum()
+        f, n = int(cf.failures[0, b]), int(cf.samples[0, b])
+        want = 1.0 if f == n else float(beta.ppf(1 - 0.025, f + 1, n - f))
+        assert cf.upper[0, b] == pytest.approx(want, rel=1e-9)
+    assert cf.failures[0, :2].sum() == 0 and cf.failures[0, 3] > 0  # the driving tolerance is seen
+    assert cf.samples.sum(axis=1).tolist() == [2000] * len(box.names)

@@ -17,6 +17,8 @@ import numpy as np
 from robust.analysis.metrics import METRICS, evaluate
 from robust.uncertainty import Box
 
+SOBOL_BASE_SAMPLES = 256  # Saltelli's N in the dossier's ranking: N (k + 2) evaluations of a linear metric
+
 
 @dataclass(frozen=True)
 class SensitivityResult:
@@ -79,3 +81,47 @@ def sobol_indices(
         seed=seed,
         confidence=confidence,
     )
+
+
+@dataclass(frozen=True)
+class ConditionalFailure:
+    """Failure fraction of one requirement on the check's samples, per equal sub-range of each parameter."""
+
+    metric: str
+    parameters: tuple[str, ...]
+    edges: np.ndarray  # (parameters, bins + 1) sub-range edges
+    samples: np.ndarray  # (parameters, bins) samples in each sub-range
+    failures: np.ndarray  # (parameters, bins)
+    upper: np.ndarray  # (parameters, bins) Clopper-Pearson upper bound of the failure probability
+    confidence: float
+
+
+def conditional_failure(
+    box: Box,
+    points: np.ndarray,
+    failed: np.ndarray,
+    metric: str,
+    *,
+    bins: int = 4,
+    confidence: float = 0.95,
+) -> ConditionalFailure:
+    """Failure fraction and its Clopper-Pearson upper bound conditional on each parameter lying in each of
+    ``bins`` equal sub-ranges of its range (the other parameters as sampled): which part of a tolerance the
+    failures come from.  ``points`` are Monte Carlo samples of the box, ``failed`` one flag per sample."""
+    from robust.analysis.stats import clopper_pearson
+
+    points = np.asarray(points, dtype=float)
+    failed = np.asarray(failed, dtype=bool)
+    if points.ndim != 2 or points.shape[1] != len(box.names) or failed.shape != (points.shape[0],):
+        raise ValueError("conditional_failure: expected points (n, parameters) and one flag per point")
+    k = len(box.names)
+    edges = np.linspace(box.low, box.high, bins + 1).T  # (k, bins + 1)
+    n = np.zeros((k, bins), dtype=int)
+    f = np.zeros((k, bins), dtype=int)
+    up = np.zeros((k, bins))
+    for p in range(k):
+        idx = np.clip(np.searchsorted(edges[p], points[:, p], side="right") - 1, 0, bins - 1)
+        n[p] = np.bincount(idx, minlength=bins)
+        f[p] = np.bincount(idx, weights=failed, minlength=bins).astype(int)
+        up[p] = [clopper_pearson(int(f[p, b]), int(n[p, b]), confidence)[1] if n[p, b] else 1.0 for b in range(bins)]
+    return ConditionalFailure(metric, tuple(box.names), edges, n, f, up, confidence)

@@ -484,6 +484,8 @@ def _blocks(d, today: str) -> tuple[list, list[Figure]]:
         )
     if getattr(d, "front", None) is not None:
         B += front_blocks(d.front)
+    if getattr(d, "tolerances", None):
+        B += tolerance_blocks(d)
     # per gain set
     stems = file_stems(g.gain.name for g in chk.gains)
     for gi, g in enumerate(chk.gains):
@@ -773,6 +775,72 @@ def sampled_margin_blocks(d) -> list:
                 "period_sweep",
             )
         )
+    return B
+
+
+def tolerance_blocks(d) -> list:
+    """The section "Which tolerance drives each requirement" (Sobol indices and failure per sub-range)."""
+    from robust.analysis.sensitivity import SOBOL_BASE_SAMPLES
+    from robust.verdict import LABELS
+
+    case = d.case
+    plan = case.study.plan
+    B = [_h(2, "Which tolerance drives each requirement")]
+    B.append(
+        _p(
+            "For each gain set, the requirements it fails (or, when it fails none, its tightest linear one). "
+            f"Sobol indices (SALib, Saltelli sampling with N = {SOBOL_BASE_SAMPLES}, parameters uniform over the box; "
+            "first order: the share of the metric's variance a tolerance explains alone; total: with its "
+            "interactions; +- the bootstrap confidence half-width) rank the tolerances. The failure fraction "
+            f"per quarter of each range comes from the study's {case.study.samples} samples"
+            + (
+                f", with the Clopper-Pearson upper bound at {case.study.confidence:g} confidence"
+                if plan == "monte_carlo"
+                else " (not Monte Carlo: fractions only, no probability)"
+            )
+            + ": where in a tolerance the failures come from."
+        )
+    )
+    for name, rows in d.tolerances.items():
+        for r in rows:
+            label = LABELS.get(r["requirement"], r["requirement"])
+            if r["metric"] is None:
+                B.append(_p(f"'{name}', {label}: not ranked ({r['why']})."))
+                continue
+            sob, cond = r["sobol"], r["conditional"]
+            table = []
+            for i, par in enumerate(cond.parameters):
+                cells = [par]
+                if sob is not None:
+                    cells += [
+                        f"{fmt(float(sob.first_order[i]), 2)} +- {fmt(float(sob.first_order_conf[i]), 2)}",
+                        f"{fmt(float(sob.total[i]), 2)} +- {fmt(float(sob.total_conf[i]), 2)}",
+                    ]
+                else:
+                    cells += ["-", "-"]
+                for b in range(cond.samples.shape[1]):
+                    n, f = int(cond.samples[i, b]), int(cond.failures[i, b])
+                    bound = f", P at most {fmt(float(cond.upper[i, b]), 2)}" if plan == "monte_carlo" else ""
+                    cells.append(f"{f} of {n}{bound}")
+                table.append(cells)
+            status = "fails" if r.get("status") == "fail" else "tightest, passes"
+            note = f" Sobol indices not computed: {r['why']}." if sob is None else ""
+            B.append(
+                Table(
+                    f"'{name}': {label} ({status}; metric {r['metric']}).{note}",
+                    [
+                        "parameter",
+                        "first-order index",
+                        "total index",
+                        "failures, 1st quarter of range",
+                        "2nd",
+                        "3rd",
+                        "4th quarter",
+                    ],
+                    table,
+                    f"tolerance_{name}_{r['metric']}",
+                )
+            )
     return B
 
 
@@ -1073,6 +1141,7 @@ def _write_files(d, target: FolderTarget, blocks, figs, today: str) -> None:
             "verdicts": d.verdicts,
             "tuning": _tuning_for_json(getattr(d, "tuning", None)),
             "front": getattr(d, "front", None),
+            "tolerances": getattr(d, "tolerances", None),
             "sampled_loop": {
                 "margins": getattr(d, "sampled_margins", None),
                 "period_sweep": getattr(d, "period_sweep", None),
