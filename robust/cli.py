@@ -190,6 +190,54 @@ def _tune(args: argparse.Namespace, progress) -> int:
     return 0 if v.passed else 1
 
 
+def _campaign(args: argparse.Namespace, progress) -> int:
+    from pathlib import Path
+
+    from robust.campaign import make_spec, replay, run_campaign
+    from robust.case import load_case
+    from robust.report.jsonout import dumps
+    from robust.report.text import campaign_text, replay_text
+
+    case = load_case(args.case)
+    if args.replay is not None:
+        if not args.store:
+            raise ValueError("--replay needs --store (the campaign's store folder)")
+        r = replay(case, args.store, args.replay)
+        if args.figure:
+            from robust.outputs import atomic_write_text
+            from robust.report import figures as F
+
+            atomic_write_text(args.figure, F.svg(F.replay_trace(r)))
+        _emit(dumps(r) if args.json else replay_text(r))
+        return 0 if r.matches else 1
+    if not args.gain or len(args.gain) != 1:
+        raise ValueError("--gain: name exactly one gain set of the case (a campaign runs one gain set)")
+    gain = _gain_sets(case, args.gain, None)[0]
+    spec = make_spec(
+        case,
+        gain,
+        args.manoeuvre or "",
+        runs=args.runs,
+        chunk=args.chunk,
+        seed=args.seed,
+        failure=args.failure,
+        target=args.target,
+    )
+    store = args.store or str(Path("campaigns") / f"{Path(args.case).stem}-{gain.name}-{spec.manoeuvre}")
+    s = run_campaign(
+        case,
+        spec,
+        store,
+        scheduler=args.scheduler,
+        workers=args.workers,
+        in_process=args.in_process,
+        stop_early=not args.no_early_stop,
+        progress=progress,
+    )
+    _emit(dumps(s) if args.json else campaign_text(s))
+    return 0 if s.demonstrated else 1
+
+
 def _front(args: argparse.Namespace, progress) -> int:
     from robust.case import CaseError, load_case
     from robust.report.jsonout import dumps
@@ -449,6 +497,29 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--quiet", action="store_true", help="no progress messages")
     p.add_argument("--json", action="store_true", help="print JSON instead of text")
     p.set_defaults(func=_front)
+
+    p = sub.add_parser(
+        "campaign",
+        help="fall-probability campaign: many nonlinear runs of one gain set through one manoeuvre, on Dask",
+    )
+    p.add_argument("case", help="case file (TOML)")
+    p.add_argument("--gain", action="append", metavar="NAME", help="the case's gain set to run (exactly one)")
+    p.add_argument("--manoeuvre", metavar="NAME", help="the case's manoeuvre to run")
+    p.add_argument("--runs", type=_positive_int, default=30000, help="Monte Carlo runs (default 30000)")
+    p.add_argument("--chunk", type=_positive_int, default=2000, help="runs per chunk / task (default 2000)")
+    p.add_argument("--seed", type=_seed, help="seed (default: the case's [study] seed)")
+    p.add_argument("--failure", default="fall", help="what counts as a failure: fall (default) or limit")
+    p.add_argument("--target", type=float, default=1e-4, help="failure probability to demonstrate (default 1e-4)")
+    p.add_argument("--store", metavar="DIR", help="results store (default campaigns/CASE-GAIN-MANOEUVRE)")
+    p.add_argument("--scheduler", metavar="ADDRESS", help="an existing Dask scheduler, e.g. tcp://host:8786")
+    p.add_argument("--workers", type=_positive_int, help="LocalCluster worker processes (default: one per core)")
+    p.add_argument("--in-process", action="store_true", help="run here, without Dask (same results)")
+    p.add_argument("--no-early-stop", action="store_true", help="run every planned chunk")
+    p.add_argument("--replay", type=int, metavar="SAMPLE", help="simulate one stored sample again, with its trace")
+    p.add_argument("--figure", metavar="PATH", help="with --replay: write the trace as an SVG figure")
+    p.add_argument("--quiet", action="store_true", help="no progress messages")
+    p.add_argument("--json", action="store_true", help="print JSON instead of text")
+    p.set_defaults(func=_campaign)
 
     p = sub.add_parser(
         "dossier",

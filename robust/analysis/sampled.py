@@ -131,7 +131,8 @@ def sampled_loop_margins(
     out["delay_margin_s"] = np.zeros((n, 2))
     out["disk_margin"] = np.zeros((n, 2))
     for j in range(2):
-        L = _response(*broken_loop(d, K, j), z)  # (n, W)
+        with np.errstate(divide="ignore", invalid="ignore", over="ignore"):  # a pole on the circle: inf, handled
+            L = _response(*broken_loop(d, K, j), z)  # (n, W)
         S = 1.0 / (1.0 + L)
         out["disk_margin"][:, j] = 1.0 / np.abs(S - 0.5).max(axis=1)
         # phase crossings: Im L changes sign with Re L < 0; gain factor -1 / Re L there

@@ -310,3 +310,24 @@ def trade_off_front(front, labels: dict[str, str]) -> Figure:
     ax.set_title("What the swept requirement costs", fontsize=9)
     fig.tight_layout()
     return fig
+
+
+def replay_trace(r) -> Figure:
+    """One replayed campaign run: pitch, and the wheel torques, against time."""
+    from robust.dynamics import STATE_NAMES
+
+    tr = r.trace
+    fig, (a1, a2) = plt.subplots(2, 1, figsize=(7.0, 4.6), sharex=True)
+    a1.plot(tr.t, np.degrees(tr.state[0, :, STATE_NAMES.index("pitch")]), color=PALETTE[0])
+    a1.set_ylabel("pitch [deg]")
+    a1.grid(True)
+    a2.plot(tr.t, tr.torque[0, :, 0], color=PALETTE[0], label="left")
+    a2.plot(tr.t, tr.torque[0, :, 1], "--", color=PALETTE[1], label="right")
+    a2.set_ylabel("wheel torque [N m]")
+    a2.set_xlabel("time [s]")
+    a2.grid(True)
+    a2.legend(fontsize=7)
+    fell = "fell" if r.again["fell"] else "no fall"
+    fig.suptitle(f"Campaign sample {r.sample} replayed ({fell})")
+    fig.tight_layout()
+    return fig

@@ -697,3 +697,39 @@ def nearest_text(case, nearest: list) -> str:
             f"others met: {'yes' if p.feasible else 'NO, ' + p.limiting + f' ({p.smallest_other_margin:.3g})'}"
         )
     return "\n".join(lines) + "\n"
+
+
+def campaign_text(s) -> str:
+    """Where a campaign stands, with what its bound means."""
+    sp = s.spec
+    what = "falls" if sp.failure == "fall" else "falls or current-limit hits"
+    verdict = (
+        f"DEMONSTRATED: P({what}) < {sp.target:g} at {sp.confidence:g} confidence"
+        if s.demonstrated
+        else (
+            f"IMPOSSIBLE: P({what}) is above {sp.target:g} at {sp.confidence:g} confidence"
+            if s.impossible
+            else f"NOT demonstrated: the upper bound {s.upper:.3g} is not below {sp.target:g}"
+        )
+    )
+    lines = [
+        f"Campaign: gain set '{sp.gain}', manoeuvre '{sp.manoeuvre}', {sp.runs} planned runs in chunks of {sp.chunk}",
+        f"  store {s.store}: {s.chunks_done} of {sp.chunks} chunks ({s.chunks_computed_now} computed now, "
+        f"{s.runs_per_s:.0f} runs/s, {s.seconds:.1f} s)",
+        f"  {s.runs_done} runs, {s.failures} {what}; one-sided Clopper-Pearson upper bound {s.upper:.3g}",
+        f"  {verdict}"
+        + (" (stopped early: optional stopping, the bound is slightly optimistic)" if s.stopped_early else ""),
+    ]
+    if s.first_failures:
+        lines.append(f"  first failing samples (replay with --replay N): {', '.join(map(str, s.first_failures))}")
+    lines.append("  A model campaign, not a safety case: validate on hardware with the vehicle restrained.")
+    return "\n".join(lines) + "\n"
+
+
+def replay_text(r) -> str:
+    """One replayed run against its stored row."""
+    lines = [f"Sample {r.sample}: " + ", ".join(f"{k} = {v:.6g}" for k, v in r.point.items())]
+    for k in r.stored:
+        lines.append(f"  {k:24s} stored {r.stored[k]:.9g}   again {r.again[k]:.9g}")
+    lines.append("  reproduced exactly" if r.matches else "  NOT reproduced: the store and this run differ")
+    return "\n".join(lines) + "\n"

@@ -1,0 +1,470 @@
+"""Fall-probability campaigns: many nonlinear runs of one gain set through one manoeuvre, in chunks, on Dask.
+
+A campaign draws ``runs`` Monte Carlo samples of the box (the block-seeded
+plan of :func:`robust.uncertainty.monte_carlo`, so sample ``i`` is the same
+whatever the chunk size or the number of workers), simulates each through
+the manoeuvre on the full nonlinear model with the drive limits, and counts
+failures (a fall, or with ``failure = "limit"`` also reaching the current
+limit).  Chunks run as Dask tasks: a ``LocalCluster`` on this machine by
+default, an existing scheduler when given; the in-process mode is the same
+code without Dask (the reference of the tests).
+
+Results go to an append-only store folder, one Parquet file per chunk
+(pyarrow), written atomically by the client only: an interrupted campaign
+resumes without recomputing finished chunks; a lock file keeps two
+campaigns out of one store, and ``campaign.json`` refuses a store made for
+another campaign.
+
+The probability bound is the one-sided Clopper-Pearson upper bound
+(Clopper and Pearson 1934) at the campaign's confidence.  Stopping as soon
+as it crosses the target is optional stopping: the bound reported is the
+fixed-sample bound at the stop, checked once per chunk, which is slightly
+optimistic; run to the planned count for a strict fixed-sample statement.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import time
+from collections.abc import Callable
+from dataclasses import asdict, dataclass
+from pathlib import Path
+
+import numpy as np
+from scipy import stats
+
+from robust.case import Case
+
+FAILURES = ("fall", "limit")
+STORE_MARKER = "campaign.json"
+LOCK = "LOCK"
+
+
+class CampaignError(ValueError):
+    """A campaign request or store that cannot be used; the message says why."""
+
+
+@dataclass(frozen=True)
+class CampaignSpec:
+    """What a campaign computes (the store's identity)."""
+
+    case_sha256: str
+    gain: str
+    K: tuple[tuple[float, ...], ...]
+    manoeuvre: str
+    runs: int
+    chunk: int
+    seed: int
+    failure: str  # "fall" or "limit" (a fall or reaching the current limit)
+    target: float  # probability to demonstrate
+    confidence: float
+
+    @property
+    def chunks(self) -> int:
+        return -(-self.runs // self.chunk)
+
+
+@dataclass(frozen=True)
+class CampaignSummary:
+    """Where a campaign stands."""
+
+    spec: CampaignSpec
+    runs_done: int
+    failures: int
+    upper: float  # one-sided Clopper-Pearson upper bound of the failure probability
+    demonstrated: bool  # upper < target
+    impossible: bool  # the lower bound already exceeds the target
+    stopped_early: bool
+    chunks_done: int
+    chunks_computed_now: int
+    seconds: float
+    runs_per_s: float
+    store: str
+    first_failures: tuple[int, ...]  # sample indexes of the first failures (replay them)
+
+
+def upper_bound(failures: int, n: int, confidence: float) -> float:
+    """One-sided Clopper-Pearson upper bound: ``Beta(confidence; f + 1, n - f)`` (1 when ``f = n``)."""
+    if n == 0:
+        return 1.0
+    return 1.0 if failures >= n else float(stats.beta.ppf(confidence, failures + 1, n - failures))
+
+
+def lower_bound(failures: int, n: int, confidence: float) -> float:
+    """One-sided Clopper-Pearson lower bound: ``Beta(1 - confidence; f, n - f + 1)`` (0 when ``f = 0``)."""
+    return 0.0 if failures == 0 else float(stats.beta.ppf(1.0 - confidence, failures, n - failures + 1))
+
+
+def make_spec(
+    case: Case,
+    gain,
+    manoeuvre: str,
+    *,
+    runs: int,
+    chunk: int = 2000,
+    seed: int | None = None,
+    failure: str = "fall",
+    target: float = 1e-3,
+    confidence: float | None = None,
+) -> CampaignSpec:
+    """Validate a request; ``CampaignError`` names what is wrong."""
+    if not case.box.ranges:
+        raise CampaignError("campaign: the case has no [ranges]; with one vehicle there is nothing to sample")
+    names = [m.name for m in case.manoeuvres]
+    if manoeuvre not in names:
+        raise CampaignError(f"--manoeuvre {manoeuvre!r}: expected one of the case's manoeuvres: {', '.join(names)}")
+    if runs < 1 or runs > 10**9:
+        raise CampaignError(f"--runs: expected 1 to 1e9, got {runs}")
+    if chunk < 1 or chunk > 10**6:
+        raise CampaignError(f"--chunk: expected 1 to 1e6 runs per chunk, got {chunk}")
+    if failure not in FAILURES:
+        raise CampaignError(f"--failure: expected one of {', '.join(FAILURES)}, got {failure!r}")
+    if not 0.0 < target < 1.0:
+        raise CampaignError(f"--target: expected a probability in (0, 1), got {target}")
+    conf = case.study.confidence if confidence is None else confidence
+    if not 0.0 < conf < 1.0:
+        raise CampaignError(f"--confidence: expected a number in (0, 1), got {conf}")
+    return CampaignSpec(
+        case_sha256=case.sha256,
+        gain=gain.name,
+        K=tuple(tuple(float(x) for x in row) for row in np.asarray(gain.K, dtype=float)),
+        manoeuvre=manoeuvre,
+        runs=int(runs),
+        chunk=int(chunk),
+        seed=int(case.study.seed if seed is None else seed),
+        failure=failure,
+        target=float(target),
+        confidence=float(conf),
+    )
+
+
+def run_chunk(case: Case, spec: CampaignSpec, index: int) -> dict[str, np.ndarray]:
+    """Simulate chunk ``index``: its samples' parameters and metrics as columns (runs on a worker)."""
+    from robust.simulate import simulate
+    from robust.uncertainty import monte_carlo
+
+    start = index * spec.chunk
+    stop = min(spec.runs, start + spec.chunk)
+    pts = monte_carlo(case.box, spec.runs, spec.seed, start=start, stop=stop)
+    man = next(m for m in case.manoeuvres if m.name == spec.manoeuvre)
+    res = simulate(case.box.plant(pts), np.asarray(spec.K), man, case.controller)
+    m = res.metrics
+    cols: dict[str, np.ndarray] = {"sample": np.arange(start, stop, dtype=np.int64)}
+    for j, name in enumerate(case.box.names):
+        cols[name] = pts[:, j].astype(np.float64)
+    cols["fell"] = np.asarray(res.fell, dtype=bool)
+    cols["fall_time_s"] = np.asarray(res.fall_time_s, dtype=np.float64)
+    cols["peak_torque_n_m"] = np.asarray(m["peak_torque_n_m"], dtype=np.float64).max(axis=1)
+    cols["peak_current_a"] = np.asarray(m["peak_current_a"], dtype=np.float64).max(axis=1)
+    cols["peak_pitch_rad"] = np.asarray(m["peak_pitch_rad"], dtype=np.float64)
+    cols["reached_current_limit"] = np.asarray(m["reached_current_limit"], dtype=bool)
+    cols["failed"] = cols["fell"] | (cols["reached_current_limit"] if spec.failure == "limit" else False)
+    return cols
+
+
+# ---------------------------------------------------------------------------
+# the store
+
+
+def _chunk_path(store: Path, index: int) -> Path:
+    return store / "chunks" / f"chunk-{index:07d}.parquet"
+
+
+def open_store(store: str | Path, spec: CampaignSpec) -> Path:
+    """Create or reopen the store of ``spec``; refuse a folder that is something else or another campaign's."""
+    from robust.outputs import atomic_write_text
+
+    p = Path(store)
+    if p.is_symlink() or (p.exists() and not p.is_dir()):
+        raise CampaignError(f"--store '{p}': not a folder; name a new folder or this campaign's store")
+    marker = p / STORE_MARKER
+    text = json.dumps(asdict(spec), indent=2, sort_keys=True) + "\n"
+    if p.exists() and any(p.iterdir()):
+        if not marker.is_file():
+            raise CampaignError(f"--store '{p}': exists and is not a campaign store; refusing to write into it")
+        if json.loads(marker.read_text(encoding="utf-8")) != json.loads(text):
+            raise CampaignError(
+                f"--store '{p}': holds another campaign (different case, gain, manoeuvre, runs, chunk, seed, failure, "
+                "target or confidence); name a new store"
+            )
+    else:
+        p.mkdir(parents=True, exist_ok=True)
+        atomic_write_text(marker, text)
+    (p / "chunks").mkdir(exist_ok=True)
+    if not os.access(p / "chunks", os.W_OK):
+        raise CampaignError(f"--store '{p}': not writable")
+    return p
+
+
+class _Lock:
+    """An exclusive lock file in the store (with the owner's pid); a lock whose process is gone is taken over."""
+
+    def __init__(self, store: Path) -> None:
+        self.path = store / LOCK
+
+    def __enter__(self):
+        for _ in range(2):
+            try:
+                fd = os.open(self.path, os.O_CREAT | os.O_EXCL | os.O_WRONLY)
+            except FileExistsError:
+                pid = self._owner()
+                if pid is None or not _alive(pid):
+                    self.path.unlink(missing_ok=True)  # stale: its campaign is gone
+                    continue
+                raise CampaignError(
+                    f"store '{self.path.parent}': another campaign (pid {pid}) is writing to it"
+                ) from None
+            os.write(fd, str(os.getpid()).encode())
+            os.close(fd)
+            return self
+        raise CampaignError(f"store '{self.path.parent}': could not take its lock")
+
+    def _owner(self) -> int | None:
+        try:
+            return int(self.path.read_text().strip())
+        except (OSError, ValueError):
+            return None
+
+    def __exit__(self, *exc) -> None:
+        self.path.unlink(missing_ok=True)
+
+
+def _alive(pid: int) -> bool:
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return False
+    except PermissionError:
+        return True
+    return True
+
+
+def _write_chunk(store: Path, index: int, cols: dict[str, np.ndarray]) -> None:
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    path = _chunk_path(store, index)
+    tmp = path.with_name(f".{path.name}.{os.getpid()}.tmp")
+    try:
+        pq.write_table(pa.table(cols), tmp)
+        os.replace(tmp, path)
+    finally:
+        tmp.unlink(missing_ok=True)
+
+
+def read_store(store: str | Path) -> dict[str, np.ndarray]:
+    """Every finished chunk of a store, concatenated in sample order, as numpy columns."""
+    import pyarrow.parquet as pq
+
+    files = sorted((Path(store) / "chunks").glob("chunk-*.parquet"))
+    if not files:
+        return {}
+    tables = [pq.read_table(f) for f in files]
+    out = {name: np.concatenate([t.column(name).to_numpy() for t in tables]) for name in tables[0].column_names}
+    order = np.argsort(out["sample"], kind="stable")
+    return {k: v[order] for k, v in out.items()}
+
+
+def _done(store: Path, spec: CampaignSpec) -> list[int]:
+    done = []
+    for f in (store / "chunks").glob("chunk-*.parquet"):
+        try:
+            i = int(f.stem.split("-")[1])
+        except (IndexError, ValueError):
+            continue
+        if 0 <= i < spec.chunks:
+            done.append(i)
+    return sorted(done)
+
+
+# ---------------------------------------------------------------------------
+# running
+
+
+def run_campaign(
+    case: Case,
+    spec: CampaignSpec,
+    store: str | Path,
+    *,
+    scheduler: str | None = None,
+    workers: int | None = None,
+    in_process: bool = False,
+    stop_early: bool = True,
+    max_chunks: int | None = None,
+    progress: Callable[[str], None] | None = None,
+) -> CampaignSummary:
+    """Run (or resume) a campaign; ``max_chunks`` stops after that many new chunks (an interruption on purpose).
+
+    ``in_process`` runs the chunks here, one after another (no Dask); otherwise on ``scheduler`` (an address
+    such as ``tcp://host:8786``) or on a ``LocalCluster`` of ``workers`` processes (default: one per core).
+    """
+    say = progress or (lambda _m: None)
+    if case.sha256 != spec.case_sha256:
+        raise CampaignError("campaign: the case file is not the one this campaign was planned with")
+    path = open_store(store, spec)
+    t0 = time.perf_counter()
+    with _Lock(path):
+        done = set(_done(path, spec))
+        failures = 0
+        runs_done = 0
+        first: list[int] = []
+        if done:
+            data = read_store(path)
+            runs_done = int(data["sample"].size)
+            failures = int(data["failed"].sum())
+            first = [int(i) for i in data["sample"][data["failed"]][:20]]
+            say(f"resuming: {len(done)} of {spec.chunks} chunks already in the store ({runs_done} runs)")
+        runs_before = runs_done
+        pending = [i for i in range(spec.chunks) if i not in done]
+        if max_chunks is not None:
+            pending = pending[:max_chunks]
+        computed = 0
+        stopped = False
+
+        def account(i: int, cols: dict[str, np.ndarray]) -> bool:
+            nonlocal failures, runs_done, computed
+            _write_chunk(path, i, cols)
+            computed += 1
+            runs_done += int(cols["sample"].size)
+            f = cols["failed"]
+            failures += int(f.sum())
+            first.extend(int(s) for s in cols["sample"][f][: max(0, 20 - len(first))])
+            up = upper_bound(failures, runs_done, spec.confidence)
+            rate = runs_done / max(time.perf_counter() - t0, 1e-9)
+            left = spec.runs - runs_done
+            say(
+                f"chunk {len(done) + computed}/{spec.chunks}: {runs_done} runs, {failures} failures, "
+                f"upper bound {up:.3g} (target {spec.target:g}), {rate:.0f} runs/s, ETA {left / max(rate, 1e-9):.0f} s"
+            )
+            if not stop_early:
+                return False
+            return up < spec.target or lower_bound(failures, runs_done, spec.confidence) > spec.target
+
+        if pending and not _finished(failures, runs_done, spec, stop_early):
+            if in_process:
+                for i in pending:
+                    if account(i, run_chunk(case, spec, i)):
+                        stopped = True
+                        break
+            else:
+                stopped = _run_on_dask(case, spec, pending, account, scheduler, workers, say)
+    seconds = time.perf_counter() - t0
+    up = upper_bound(failures, runs_done, spec.confidence)
+    return CampaignSummary(
+        spec=spec,
+        runs_done=runs_done,
+        failures=failures,
+        upper=up,
+        demonstrated=bool(runs_done > 0 and up < spec.target),
+        impossible=bool(lower_bound(failures, runs_done, spec.confidence) > spec.target),
+        stopped_early=stopped,
+        chunks_done=len(_done(path, spec)),
+        chunks_computed_now=computed,
+        seconds=seconds,
+        runs_per_s=(runs_done - runs_before) / seconds if computed else 0.0,
+        store=str(path),
+        first_failures=tuple(sorted(first)[:20]),
+    )
+
+
+def _finished(failures: int, runs: int, spec: CampaignSpec, stop_early: bool) -> bool:
+    if not stop_early or runs == 0:
+        return False
+    return upper_bound(failures, runs, spec.confidence) < spec.target or (
+        lower_bound(failures, runs, spec.confidence) > spec.target
+    )
+
+
+def _run_on_dask(case, spec, pending, account, scheduler, workers, say) -> bool:
+    """The chunks as Dask tasks, at most two per worker in flight (so an early stop wastes little)."""
+    from distributed import Client, LocalCluster, as_completed
+
+    cluster = None
+    if scheduler:
+        client = Client(scheduler)
+    else:
+        n = workers or os.cpu_count() or 1
+        cluster = LocalCluster(n_workers=n, threads_per_worker=1, processes=True, dashboard_address=None)
+        client = Client(cluster)
+    try:
+        nworkers = max(1, len(client.scheduler_info().get("workers", {})))
+        say(f"Dask: {nworkers} workers at {client.scheduler.address}")
+        case_f = client.scatter(case, broadcast=True)
+        queue = list(pending)
+        window = 2 * nworkers
+        running = as_completed()
+        index_of = {}
+        for _ in range(min(window, len(queue))):
+            i = queue.pop(0)
+            fut = client.submit(run_chunk, case_f, spec, i, pure=False)
+            index_of[fut.key] = i
+            running.add(fut)
+        for fut in running:
+            i = index_of.pop(fut.key)
+            if account(i, fut.result()):
+                return True  # the chunks still in flight are cancelled when the client closes
+            if queue:
+                j = queue.pop(0)
+                nxt = client.submit(run_chunk, case_f, spec, j, pure=False)
+                index_of[nxt.key] = j
+                running.add(nxt)
+        return False
+    finally:
+        client.close()
+        if cluster is not None:
+            cluster.close()
+
+
+@dataclass(frozen=True)
+class Replay:
+    """One stored run simulated again alone, with its trace; ``matches`` says whether it reproduced the store."""
+
+    sample: int
+    point: dict[str, float]
+    stored: dict[str, float]
+    again: dict[str, float]
+    matches: bool
+    trace: object  # robust.simulate.Trace
+
+
+def replay(case: Case, store: str | Path, sample: int) -> Replay:
+    """Simulate sample ``sample`` of a stored campaign alone (with a trace) and compare with the stored row."""
+    from robust.simulate import simulate
+    from robust.uncertainty import monte_carlo
+
+    p = Path(store)
+    marker = p / STORE_MARKER
+    if not marker.is_file():
+        raise CampaignError(f"store '{p}': no {STORE_MARKER}; not a campaign store")
+    raw = json.loads(marker.read_text(encoding="utf-8"))
+    raw["K"] = tuple(tuple(r) for r in raw["K"])
+    spec = CampaignSpec(**raw)
+    if case.sha256 != spec.case_sha256:
+        raise CampaignError(f"store '{p}': made with another case file (SHA-256 {spec.case_sha256})")
+    if not 0 <= sample < spec.runs:
+        raise CampaignError(f"sample {sample}: expected 0 to {spec.runs - 1}")
+    chunk = sample // spec.chunk
+    path = _chunk_path(p, chunk)
+    if not path.is_file():
+        raise CampaignError(f"sample {sample}: its chunk {chunk} is not in the store yet")
+    import pyarrow.parquet as pq
+
+    table = pq.read_table(path)
+    row = int(np.flatnonzero(table.column("sample").to_numpy() == sample)[0])
+    names = ("fell", "fall_time_s", "peak_torque_n_m", "peak_current_a", "peak_pitch_rad", "reached_current_limit")
+    stored = {n: float(table.column(n).to_numpy()[row]) for n in names}
+    pt = monte_carlo(case.box, spec.runs, spec.seed, start=sample, stop=sample + 1)
+    man = next(m for m in case.manoeuvres if m.name == spec.manoeuvre)
+    res = simulate(case.box.plant(pt), np.asarray(spec.K), man, case.controller, trace=True)
+    m = res.metrics
+    again = {
+        "fell": float(res.fell[0]),
+        "fall_time_s": float(res.fall_time_s[0]),
+        "peak_torque_n_m": float(np.max(m["peak_torque_n_m"][0])),
+        "peak_current_a": float(np.max(m["peak_current_a"][0])),
+        "peak_pitch_rad": float(m["peak_pitch_rad"][0]),
+        "reached_current_limit": float(m["reached_current_limit"][0]),
+    }
+    same = all((stored[k] == again[k]) or (np.isnan(stored[k]) and np.isnan(again[k])) for k in names)
+    return Replay(sample, dict(zip(case.box.names, map(float, pt[0]))), stored, again, bool(same), res.trace)
