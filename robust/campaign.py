@@ -385,7 +385,16 @@ def _run_on_dask(case, spec, pending, account, scheduler, workers, say) -> bool:
         client = Client(scheduler)
     else:
         n = workers or os.cpu_count() or 1
-        cluster = LocalCluster(n_workers=n, threads_per_worker=1, processes=True, dashboard_address=None)
+        # the compiled kernel is itself parallel across samples: share the cores out, so that n workers with
+        # cores / n kernel threads each do not oversubscribe the machine
+        threads = str(max(1, (os.cpu_count() or 1) // n))
+        cluster = LocalCluster(
+            n_workers=n,
+            threads_per_worker=1,
+            processes=True,
+            dashboard_address=None,
+            env={"NUMBA_NUM_THREADS": threads, "OMP_NUM_THREADS": threads},
+        )
         client = Client(cluster)
     try:
         nworkers = max(1, len(client.scheduler_info().get("workers", {})))
