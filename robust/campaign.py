@@ -477,3 +477,163 @@ def replay(case: Case, store: str | Path, sample: int) -> Replay:
     }
     same = all((stored[k] == again[k]) or (np.isnan(stored[k]) and np.isnan(again[k])) for k in names)
     return Replay(sample, dict(zip(case.box.names, map(float, pt[0]))), stored, again, bool(same), res.trace)
+
+
+# ---------------------------------------------------------------------------
+# rare events: subset simulation
+
+SUBSET_METRICS = {
+    "fall": "peak pitch / fall angle, and 1 for a run that fell (by any of the engine's fall tests); threshold 1",
+    "peak_pitch_rad": "peak pitch [rad] (a fall stops the run at the fall angle)",
+    "peak_current_a": "peak motor current [A]",
+    "peak_torque_n_m": "peak wheel torque [N m]",
+}
+
+
+@dataclass(frozen=True)
+class SubsetResult:
+    """Subset simulation estimate of ``P(metric >= threshold)``."""
+
+    metric: str
+    threshold: float
+    probability: float
+    cov: float  # coefficient of variation of the estimate (chain correlation included)
+    levels: tuple[dict, ...]  # per level: its threshold, conditional probability, its own c.o.v.
+    evaluations: int
+    samples_per_level: int
+    p0: float
+    seed: int
+
+
+def _performance(case: Case, K: np.ndarray, manoeuvre, metric: str, u: np.ndarray) -> np.ndarray:
+    """The metric of each standard-normal point ``u`` (mapped to the box through the normal CDF)."""
+    from robust.simulate import simulate
+    from robust.uncertainty import from_unit
+
+    pts = from_unit(case.box, stats.norm.cdf(u))
+    res = simulate(case.box.plant(pts), K, manoeuvre, case.controller)
+    if metric == "fall":
+        ratio = np.asarray(res.metrics["peak_pitch_rad"], dtype=float) / case.controller.fall_angle_rad
+        return np.where(res.fell, 1.0, np.minimum(ratio, 1.0 - 1e-12))
+    v = np.asarray(res.metrics[metric], dtype=float)
+    return v.max(axis=1) if v.ndim == 2 else v
+
+
+def _gamma(chains: np.ndarray, p: float) -> float:
+    """Correlation factor of the indicator along the Markov chains, ``2 sum (1 - k/Ns) rho(k)`` (Au and Beck
+    2001, eq. 27-29); ``chains`` is ``(Nc, Ns)`` of 0/1."""
+    nc, ns = chains.shape
+    if ns < 2 or p <= 0.0 or p >= 1.0:
+        return 0.0
+    r0 = p * (1.0 - p)
+    g = 0.0
+    for k in range(1, ns):
+        rk = float(np.mean(chains[:, : ns - k] * chains[:, k:])) - p * p
+        g += 2.0 * (1.0 - k / ns) * rk / r0
+    return max(g, 0.0)
+
+
+def subset_simulation(
+    case: Case,
+    K: np.ndarray,
+    manoeuvre: str,
+    *,
+    metric: str = "fall",
+    threshold: float | None = None,
+    samples_per_level: int = 500,
+    p0: float = 0.1,
+    seed: int = 0,
+    max_levels: int = 10,
+    progress: Callable[[str], None] | None = None,
+) -> SubsetResult:
+    """``P(metric >= threshold)`` over the box by subset simulation (Au and Beck, Probabilistic Engineering
+    Mechanics 16(4), 2001): plain Monte Carlo at level 0, then nested conditional levels at the
+    ``1 - p0`` quantiles, sampled by component-wise (modified) Metropolis chains in standard normal space
+    started from the samples above each level; the parameters map to the box through the normal CDF and the
+    case's distributions.  The default performance ``fall`` is the peak pitch over the fall angle, 1 for a run
+    that fell, with threshold 1: its probability is the fall probability of the campaign."""
+    say = progress or (lambda _m: None)
+    if metric not in SUBSET_METRICS:
+        raise CampaignError(f"subset metric {metric!r}: expected one of {', '.join(SUBSET_METRICS)}")
+    if not case.box.ranges:
+        raise CampaignError("subset simulation: the case has no [ranges]")
+    if not 0.0 < p0 <= 0.5 or samples_per_level < 20:
+        raise CampaignError("subset simulation: expected 0 < p0 <= 0.5 and at least 20 samples per level")
+    names = [m.name for m in case.manoeuvres]
+    if manoeuvre not in names:
+        raise CampaignError(f"--manoeuvre {manoeuvre!r}: expected one of the case's manoeuvres: {', '.join(names)}")
+    man = next(m for m in case.manoeuvres if m.name == manoeuvre)
+    if threshold is None:
+        if metric != "fall":
+            raise CampaignError(f"subset simulation of {metric}: give the threshold")
+        threshold = 1.0
+    K = np.asarray(K, dtype=float)
+    rng = np.random.default_rng(np.random.SeedSequence(seed))
+    k = len(case.box.ranges)
+    n = samples_per_level
+    nc = max(1, int(round(p0 * n)))
+    ns = n // nc
+    u = rng.standard_normal((n, k))
+    g = _performance(case, K, man, metric, u)
+    evals = n
+    levels: list[dict] = []
+    prob = 1.0
+    cov2 = 0.0
+    g_chains = np.zeros((0, 0))  # the last level's chains (level 0 has none: independent samples)
+    for level in range(max_levels):
+        order = np.argsort(-g, kind="stable")
+        b = float(g[order[nc - 1]])  # the (1 - p0) quantile: nc samples at or above it
+        if b >= threshold or level == max_levels - 1:
+            p = float(np.mean(g >= threshold))
+            d2 = (1 - p) / (p * n) if p > 0 else np.inf
+            if level > 0:
+                d2 *= 1.0 + _gamma(indicator_chains(g_chains, threshold), p) if p > 0 else 1.0
+            levels.append({"threshold": threshold, "probability": p, "cov": float(np.sqrt(d2))})
+            prob *= p
+            cov2 += d2
+            say(f"subset level {level}: final, P = {p:.3g} of the level ({evals} runs so far)")
+            break
+        p = nc / n
+        d2 = (1 - p) / (p * n) * (1.0 + (_gamma(indicator_chains(g_chains, b), p) if level > 0 else 0.0))
+        levels.append({"threshold": b, "probability": p, "cov": float(np.sqrt(d2))})
+        prob *= p
+        cov2 += d2
+        say(f"subset level {level}: threshold {b:.4g} ({evals} runs so far)")
+        # Markov chains from the nc seeds above b, ns states each (the seed is the first state)
+        cu, cg = u[order[:nc]].copy(), g[order[:nc]].copy()
+        states_u, states_g = [cu.copy()], [cg.copy()]
+        for _step in range(1, ns):
+            xi = cu + rng.standard_normal(cu.shape)
+            ratio = np.exp(-0.5 * (xi**2 - cu**2))
+            take = rng.random(cu.shape) < np.minimum(1.0, ratio)
+            cand = np.where(take, xi, cu)
+            moved = take.any(axis=1)
+            gc = cg.copy()
+            if moved.any():
+                gc[moved] = _performance(case, K, man, metric, cand[moved])
+                evals += int(moved.sum())
+            ok = moved & (gc >= b)
+            cu = np.where(ok[:, None], cand, cu)
+            cg = np.where(ok, gc, cg)
+            states_u.append(cu.copy())
+            states_g.append(cg.copy())
+        u = np.concatenate(states_u)  # (ns * nc, k), state-major
+        g = np.concatenate(states_g)
+        g_chains = np.stack(states_g, axis=1)  # (nc, ns)
+        n = u.shape[0]
+    return SubsetResult(
+        metric=metric,
+        threshold=float(threshold),
+        probability=float(prob),
+        cov=float(np.sqrt(cov2)),
+        levels=tuple(levels),
+        evaluations=int(evals),
+        samples_per_level=samples_per_level,
+        p0=p0,
+        seed=seed,
+    )
+
+
+def indicator_chains(g_chains: np.ndarray, b: float) -> np.ndarray:
+    """0/1 indicator of ``g >= b`` along each chain ``(Nc, Ns)``."""
+    return (g_chains >= b).astype(float)

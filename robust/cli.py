@@ -213,6 +213,22 @@ def _campaign(args: argparse.Namespace, progress) -> int:
     if not args.gain or len(args.gain) != 1:
         raise ValueError("--gain: name exactly one gain set of the case (a campaign runs one gain set)")
     gain = _gain_sets(case, args.gain, None)[0]
+    if args.subset:
+        from robust.campaign import subset_simulation
+        from robust.report.text import subset_text
+
+        r = subset_simulation(
+            case,
+            gain.K,
+            args.manoeuvre or "",
+            metric=args.subset_metric,
+            threshold=args.threshold,
+            samples_per_level=args.level_samples,
+            seed=case.study.seed if args.seed is None else args.seed,
+            progress=progress,
+        )
+        _emit(dumps(r) if args.json else subset_text(r, gain.name, args.manoeuvre))
+        return 0 if r.probability < args.target else 1
     spec = make_spec(
         case,
         gain,
@@ -515,6 +531,10 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--workers", type=_positive_int, help="LocalCluster worker processes (default: one per core)")
     p.add_argument("--in-process", action="store_true", help="run here, without Dask (same results)")
     p.add_argument("--no-early-stop", action="store_true", help="run every planned chunk")
+    p.add_argument("--subset", action="store_true", help="estimate the probability by subset simulation instead")
+    p.add_argument("--subset-metric", default="fall", help="with --subset: fall (default), peak_pitch_rad, ...")
+    p.add_argument("--threshold", type=float, help="with --subset: failure when the metric reaches this value")
+    p.add_argument("--level-samples", type=_positive_int, default=500, help="with --subset: samples per level")
     p.add_argument("--replay", type=int, metavar="SAMPLE", help="simulate one stored sample again, with its trace")
     p.add_argument("--figure", metavar="PATH", help="with --replay: write the trace as an SVG figure")
     p.add_argument("--quiet", action="store_true", help="no progress messages")

@@ -733,3 +733,21 @@ def replay_text(r) -> str:
         lines.append(f"  {k:24s} stored {r.stored[k]:.9g}   again {r.again[k]:.9g}")
     lines.append("  reproduced exactly" if r.matches else "  NOT reproduced: the store and this run differ")
     return "\n".join(lines) + "\n"
+
+
+def subset_text(r, gain: str, manoeuvre: str) -> str:
+    """A subset-simulation estimate with its levels."""
+    lines = [
+        f"Subset simulation: P({r.metric} >= {r.threshold:.4g}) for gain set '{gain}', manoeuvre '{manoeuvre}'",
+        f"  estimate {r.probability:.3g}, coefficient of variation {r.cov:.2f} ({r.evaluations} runs; "
+        f"{r.samples_per_level} per level, p0 = {r.p0:g}, seed {r.seed})",
+    ]
+    for i, lv in enumerate(r.levels):
+        lines.append(
+            f"  level {i}: threshold {lv['threshold']:.4g}, conditional probability {lv['probability']:.3g} "
+            f"(c.o.v. {lv['cov']:.2f})"
+        )
+    lines.append(
+        "  An estimate with a coefficient of variation, not a confidence bound: for a demonstration, run the campaign."
+    )
+    return "\n".join(lines) + "\n"
