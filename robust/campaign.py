@@ -637,3 +637,40 @@ def subset_simulation(
 def indicator_chains(g_chains: np.ndarray, b: float) -> np.ndarray:
     """0/1 indicator of ``g >= b`` along each chain ``(Nc, Ns)``."""
     return (g_chains >= b).astype(float)
+
+
+def campaign_record(case: Case, store: str | Path) -> dict:
+    """What a stored campaign shows in a dossier: its plan, where it stands and its first failures."""
+    p = Path(store)
+    marker = p / STORE_MARKER
+    if not marker.is_file():
+        raise CampaignError(f"--campaign '{p}': no {STORE_MARKER}; not a campaign store")
+    spec = json.loads(marker.read_text(encoding="utf-8"))
+    if spec.get("case_sha256") != case.sha256:
+        raise CampaignError(f"--campaign '{p}': made with another case file (SHA-256 {spec.get('case_sha256')})")
+    data = read_store(p)
+    n = int(data["sample"].size) if data else 0
+    f = int(data["failed"].sum()) if data else 0
+    conf = float(spec["confidence"])
+    fails = []
+    if f:
+        idx = np.flatnonzero(data["failed"])[:10]
+        for i in idx:
+            fails.append({"sample": int(data["sample"][i]), **{k: float(data[k][i]) for k in case.box.names}})
+    up = upper_bound(f, n, conf)
+    return {
+        "store": str(p),
+        "gain": spec["gain"],
+        "manoeuvre": spec["manoeuvre"],
+        "failure": spec["failure"],
+        "planned_runs": int(spec["runs"]),
+        "runs": n,
+        "failures": f,
+        "target": float(spec["target"]),
+        "confidence": conf,
+        "upper_bound": up,
+        "demonstrated": bool(n > 0 and up < float(spec["target"])),
+        "complete": n >= int(spec["runs"]),
+        "first_failures": fails,
+        "estimator": "plain Monte Carlo, one-sided Clopper-Pearson upper bound",
+    }

@@ -340,13 +340,19 @@ def _dossier(args: argparse.Namespace, progress) -> int:
     files = [read_gain_file(f) for f in args.gain_file or []]
     previous = load_previous(args.previous) if args.previous else None
     out = Path(args.out) if args.out else Path("reports") / Path(args.case).stem
-    target = plan_folder(out, protect=[args.case, *(args.gain_file or [])])
+    target = plan_folder(out, protect=[args.case, *(args.gain_file or []), *(args.campaign or [])])
+    campaigns = []
+    if args.campaign:
+        from robust.campaign import campaign_record
+
+        campaigns = [campaign_record(case, c) for c in args.campaign]
     data = run_dossier(
         case,
         gain_files=files,
         gain_paths=list(args.gain_file or []),
         synthesize=not args.no_synthesis,
         previous=previous,
+        campaigns=campaigns,
         progress=progress,
     )
     progress(f"writing the dossier to {target.path}")
@@ -557,6 +563,12 @@ def build_parser() -> argparse.ArgumentParser:
         "--previous",
         metavar="DIR",
         help="a previous dossier of the same case: its verdicts and gains are compared on the decision page",
+    )
+    p.add_argument(
+        "--campaign",
+        action="append",
+        metavar="STORE",
+        help="a fall-probability campaign store of this case to report (repeatable)",
     )
     p.add_argument(
         "--strict", action="store_true", help="exit 1 unless at least one gain set's overall verdict is PASS"

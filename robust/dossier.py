@@ -60,6 +60,7 @@ class DossierData:
     sampled_margins: dict[str, dict[str, np.ndarray]] | None = None  # per gain set, arrays (models, 2 wheels)
     period_sweep: dict[str, list[dict]] | None = None  # per gain set, one row per sample period tried
     tolerances: dict[str, list[dict]] | None = None  # per gain set: which tolerance drives which requirement
+    campaigns: tuple[dict, ...] = ()  # fall-probability campaigns given with --campaign (campaign_record)
 
 
 LOOP_SHAPE_MODELS = 400  # models (corners first) whose loop shapes are drawn as bands
@@ -112,6 +113,7 @@ def run_dossier(
     gain_paths: list[str] | None = None,
     synthesize: bool = True,
     previous: dict | None = None,
+    campaigns: list[dict] | None = None,
     progress: Progress | None = None,
 ) -> DossierData:
     """Run every analysis the dossier reports.
@@ -231,6 +233,7 @@ def run_dossier(
         sampled_margins=sampled_margins,
         period_sweep=period_sweep,
         tolerances=tolerances,
+        campaigns=tuple(campaigns or ()),
         front=front,
         stamp=stamp(case),
         facts=facts,

@@ -144,3 +144,25 @@ def test_subset_simulation_agrees_with_plain_monte_carlo_near_one_percent(cart):
     sd = np.hypot(cov * est.mean() / 2.0, np.sqrt(p_mc * (1 - p_mc) / 10_000))
     assert abs(est.mean() - p_mc) <= 3 * sd, (est, p_mc, cov)
     assert all(r.evaluations < 1500 and len(r.levels) >= 2 for r in runs)  # fewer runs than Monte Carlo needs
+
+
+def test_a_campaign_feeds_the_dossier(small, tmp_path):
+    """The dossier's campaign record counts what the store holds and bounds it as the campaign did; a store
+    made with another case file is refused (exit 2) before any work, and nothing is written."""
+    from types import SimpleNamespace
+
+    from robust.campaign import campaign_record
+    from robust.report.dossier import campaign_blocks
+
+    case, gain = small
+    spec = make_spec(case, gain, "go", runs=60, chunk=30, target=0.2)
+    s = run_campaign(case, spec, tmp_path / "s", in_process=True, stop_early=False)
+    rec = campaign_record(case, tmp_path / "s")
+    assert (rec["runs"], rec["failures"], rec["upper_bound"]) == (s.runs_done, s.failures, s.upper)
+    assert rec["complete"] and rec["demonstrated"] == s.demonstrated
+    blocks = campaign_blocks(SimpleNamespace(campaigns=(rec,)))
+    assert any("Campaign 'placed' / 'go'" in str(getattr(b, "title", "")) for b in blocks)
+    other = Path(__file__).resolve().parents[1] / "cases" / "delivery_cart.toml"
+    out = tmp_path / "d"
+    assert main(["dossier", str(other), "--campaign", str(tmp_path / "s"), "--out", str(out), "--quiet"]) == 2
+    assert not out.exists()

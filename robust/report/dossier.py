@@ -486,6 +486,8 @@ def _blocks(d, today: str) -> tuple[list, list[Figure]]:
         B += front_blocks(d.front)
     if getattr(d, "tolerances", None):
         B += tolerance_blocks(d)
+    if getattr(d, "campaigns", ()):
+        B += campaign_blocks(d)
     # per gain set
     stems = file_stems(g.gain.name for g in chk.gains)
     for gi, g in enumerate(chk.gains):
@@ -844,6 +846,37 @@ def tolerance_blocks(d) -> list:
     return B
 
 
+def campaign_blocks(d) -> list:
+    """One table per fall-probability campaign given with --campaign."""
+    B = [_h(2, "Fall-probability campaigns")]
+    B.append(
+        _p(
+            "Each campaign ran one gain set through one manoeuvre on block-seeded Monte Carlo samples of the box "
+            "(full nonlinear model, drive limits); the bound is the one-sided Clopper-Pearson upper bound of the "
+            "failure probability at the campaign's confidence. A campaign that stopped early (optional stopping) "
+            "has a slightly optimistic bound. A model campaign, not a safety case."
+        )
+    )
+    for c in d.campaigns:
+        what = "a fall" if c["failure"] == "fall" else "a fall or the current limit"
+        rows = [
+            ["gain set / manoeuvre", f"{c['gain']} / {c['manoeuvre']}"],
+            ["failure counted", what],
+            ["runs done / planned", f"{c['runs']} / {c['planned_runs']}" + ("" if c["complete"] else " (incomplete)")],
+            ["failures", str(c["failures"])],
+            [f"upper bound at {fmt(c['confidence'])}", fmt(c["upper_bound"])],
+            ["target", fmt(c["target"])],
+            ["target demonstrated", "yes" if c["demonstrated"] else "NO"],
+            ["estimator", c["estimator"]],
+            ["store", c["store"]],
+        ]
+        for fl in c["first_failures"][:5]:
+            point = ", ".join(f"{k} = {fmt(v)}" for k, v in fl.items() if k != "sample")
+            rows.append([f"failure, sample {fl['sample']} (replay with --replay)", point])
+        B.append(Table(f"Campaign '{c['gain']}' / '{c['manoeuvre']}'", ["item", "value"], rows, None))
+    return B
+
+
 def front_blocks(fr) -> list:
     """The section "What each requirement costs": the trade-off front as a table."""
     from robust.verdict import LABELS
@@ -1142,6 +1175,7 @@ def _write_files(d, target: FolderTarget, blocks, figs, today: str) -> None:
             "tuning": _tuning_for_json(getattr(d, "tuning", None)),
             "front": getattr(d, "front", None),
             "tolerances": getattr(d, "tolerances", None),
+            "campaigns": list(getattr(d, "campaigns", ())),
             "sampled_loop": {
                 "margins": getattr(d, "sampled_margins", None),
                 "period_sweep": getattr(d, "period_sweep", None),
