@@ -305,6 +305,8 @@ def run_campaign(
     path = open_store(store, spec)
     t0 = time.perf_counter()
     with _Lock(path):
+        for stale in (path / "chunks").glob(".chunk-*.tmp"):  # a killed run's half-written chunk: we hold the lock
+            stale.unlink(missing_ok=True)
         done = set(_done(path, spec))
         failures = 0
         runs_done = 0

@@ -166,3 +166,35 @@ def test_a_campaign_feeds_the_dossier(small, tmp_path):
     out = tmp_path / "d"
     assert main(["dossier", str(other), "--campaign", str(tmp_path / "s"), "--out", str(out), "--quiet"]) == 2
     assert not out.exists()
+
+
+def test_a_killed_campaign_resumes_to_the_same_result(small, tmp_path):
+    """A campaign process killed (SIGKILL) after its first chunks leaves only whole chunk files and a stale
+    lock; the next run takes the lock over, computes only the missing chunks and ends with the same store as
+    an uninterrupted run."""
+    import os
+    import signal
+    import subprocess
+    import sys
+    import time
+
+    case, gain = small
+    store = tmp_path / "killed"
+    args = [sys.executable, "-m", "robust", "campaign", str(SMALL), "--gain", "placed", "--manoeuvre", "go"]
+    args += ["--runs", "400", "--chunk", "20", "--target", "1e-6", "--store", str(store), "--in-process", "--quiet"]
+    proc = subprocess.Popen(args, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+    try:
+        deadline = time.time() + 120
+        while time.time() < deadline and len(list((store / "chunks").glob("chunk-*.parquet"))) < 2:
+            time.sleep(0.05)
+        os.kill(proc.pid, signal.SIGKILL)
+    finally:
+        proc.wait()
+    done_before = len(list((store / "chunks").glob("chunk-*.parquet")))
+    assert 2 <= done_before < 20 and (store / "LOCK").exists()  # killed mid-way, its lock left behind
+    spec = make_spec(case, gain, "go", runs=400, chunk=20, target=1e-6)
+    resumed = run_campaign(case, spec, store, in_process=True)
+    assert resumed.chunks_computed_now == 20 - done_before and resumed.runs_done == 400
+    run_campaign(case, spec, tmp_path / "whole", in_process=True)
+    assert _same(read_store(store), read_store(tmp_path / "whole"))
+    assert not list((store / "chunks").glob(".*.tmp")) and not (store / "LOCK").exists()
