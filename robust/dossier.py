@@ -313,10 +313,40 @@ def _tolerance_studies(case: Case, gains, verdicts, samples: np.ndarray) -> dict
                         "conditional": cond,
                         "why": why,
                         "status": o.status,
+                        "cuts": _cuts(case, g.K, name, samples, y, kind),
                     }
                 )
         out[g.name] = rows
     return out
+
+
+def _metric_unit(metric: str) -> str:
+    from robust.analysis.metrics import METRICS
+
+    return METRICS[metric].unit
+
+
+CUT_POINTS = 21  # points along each parameter in the one-at-a-time cuts through the worst sample
+
+
+def _cuts(case: Case, K: np.ndarray, metric: str, samples: np.ndarray, values: np.ndarray, kind: str) -> dict:
+    """The metric along each parameter's range with the other parameters held at the worst sample's values:
+    which tolerance, moved alone from the worst point, changes the worst case most."""
+    worst = int(np.argmin(values) if kind == "min" else np.argmax(values))
+    at = samples[worst]
+    u = np.linspace(0.0, 1.0, CUT_POINTS)
+    k = len(case.box.names)
+    pts = np.repeat(at[None, :], k * CUT_POINTS, axis=0)
+    for j in range(k):
+        pts[j * CUT_POINTS : (j + 1) * CUT_POINTS, j] = case.box.low[j] + u * (case.box.high[j] - case.box.low[j])
+    v = evaluate(case.box, pts, K, names=(metric,))[metric].reshape(k, CUT_POINTS)
+    return {
+        "position": u,
+        "values": v,
+        "unit": _metric_unit(metric),
+        "at": dict(zip(case.box.names, map(float, at))),
+        "worst": float(values[worst]),
+    }
 
 
 PERIOD_FACTORS = (0.5, 1.0, 2.0, 4.0, 8.0)  # sample periods tried, times the case's (latency scaled alike)

@@ -337,3 +337,11 @@ def test_tolerance_section_matches_the_check(two_runs):
             assert all(sum(row) == int(failing.split(" of ")[0]) for row in cond["failures"])
             sob = r["sobol"]
             assert sob is None or (len(sob["first_order"]) == len(cond["parameters"]) and sob["evaluations"] > 0)
+            # each one-at-a-time cut passes through the worst sample: interpolated there, it gives the worst value
+            cuts = r["cuts"]
+            names = cond["parameters"]
+            for j, name in enumerate(names):
+                lo, hi = cond["edges"][j][0], cond["edges"][j][-1]
+                pos = (cuts["at"][name] - lo) / (hi - lo)
+                got = np.interp(pos, cuts["position"], cuts["values"][j])
+                assert got == pytest.approx(cuts["worst"], rel=0.02, abs=1e-9), (name, got, cuts["worst"])

@@ -1005,6 +1005,16 @@ def figure_plan(d) -> list[tuple[str, str, object]]:
                         ),
                     )
                 )
+    for gname, rows in (getattr(d, "tolerances", None) or {}).items():
+        if any(r.get("cuts") is not None for r in rows):
+            plan.append(
+                (
+                    f"tolerance_cuts_{file_stems([gname])[gname]}",
+                    f"Worst case along each tolerance for '{gname}': each requirement's metric as one parameter moves "
+                    "across its range, the others held at the worst sample of the study.",
+                    lambda rows=rows, gname=gname: F.tolerance_cuts(rows, case.box.names, req, gname),
+                )
+            )
     if getattr(d, "front", None) is not None:
         from robust.verdict import LABELS
 

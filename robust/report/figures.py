@@ -331,3 +331,31 @@ def replay_trace(r) -> Figure:
     fig.suptitle(f"Campaign sample {r.sample} replayed ({fell})")
     fig.tight_layout()
     return fig
+
+
+def tolerance_cuts(rows: list[dict], names: tuple[str, ...], bounds: dict[str, float], gain: str) -> Figure:
+    """One panel per requirement: its metric along each parameter's range (0 = low end, 1 = high end) with
+    the other parameters at the worst sample; the requirement's bound as a limit line."""
+    rows = [r for r in rows if r.get("cuts") is not None]
+    fig, axes = plt.subplots(1, len(rows), figsize=(4.2 * len(rows) + 1.0, 3.4), squeeze=False)
+    for ax, r in zip(axes[0], rows):
+        c = r["cuts"]
+        for j, name in enumerate(names):
+            ax.plot(
+                c["position"],
+                c["values"][j],
+                MARKERS[j % len(MARKERS)] + STYLES[j % len(STYLES)],
+                ms=3,
+                lw=1.0,
+                label=name,
+            )
+        b = bounds.get(r["requirement"])
+        if b is not None:
+            ax.axhline(b, color=LIMIT_COLOUR, lw=0.8, ls="-.", label="requirement")
+        ax.set_title(f"{r['metric']} ({r['requirement']})", fontsize=8)
+        ax.set_xlabel("position in range (others at the worst sample)")
+        ax.grid(True)
+    axes[0][0].legend(fontsize=6, loc="best")
+    fig.suptitle(f"Worst case along each tolerance, '{gain}'")
+    fig.tight_layout()
+    return fig

@@ -121,7 +121,7 @@ KEY_SUFFIX = {"decay_rate": "_per_s", "unstable_pole": "_per_s", "torque_limit":
 # the fields of a record with a ``unit`` that hold values in that unit (the rest are counts, fractions, points)
 VALUE_FIELDS = frozenset(
     {"nominal", "worst", "threshold", "margin", "bound", "value", "median", "percentiles"}
-    | {"worst_corner", "worst_sample", "worst_search", "low", "high"}
+    | {"worst_corner", "worst_sample", "worst_search", "low", "high", "values"}
 )
 _PERCENTILE = re.compile(r"p\d+(\.\d+)?$")
 
