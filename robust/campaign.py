@@ -333,7 +333,7 @@ def run_campaign(
             failures += int(f.sum())
             first.extend(int(s) for s in cols["sample"][f][: max(0, 20 - len(first))])
             up = upper_bound(failures, runs_done, spec.confidence)
-            rate = runs_done / max(time.perf_counter() - t0, 1e-9)
+            rate = (runs_done - runs_before) / max(time.perf_counter() - t0, 1e-9)  # this run's rate, not the store's
             left = spec.runs - runs_done
             say(
                 f"chunk {len(done) + computed}/{spec.chunks}: {runs_done} runs, {failures} failures, "
