@@ -274,16 +274,7 @@ def _tolerance_studies(case: Case, gains, verdicts, samples: np.ndarray) -> dict
             if o.key == "closed_loop_stable":
                 metrics = ["decay_rate"]
             if o.domain != "linear" or not metrics:
-                rows.append(
-                    {
-                        "requirement": o.key,
-                        "metric": None,
-                        "sobol": None,
-                        "conditional": None,
-                        "why": "time-domain requirement: a ranking needs N (k + 2) simulations per manoeuvre; "
-                        "not run in the dossier (the worst-location figure shows where it fails)",
-                    }
-                )
+                rows.append(_time_ranking(case, g.K, o))
                 continue
             bound = case.requirements.get(o.key, 0.0)
             for name in metrics:
@@ -320,6 +311,57 @@ def _tolerance_studies(case: Case, gains, verdicts, samples: np.ndarray) -> dict
     return out
 
 
+# time-domain requirements the dossier ranks: (metric name, unit, per-run value from a simulation result)
+TIME_RANKED = {
+    "max_wheel_torque_n_m": ("peak_torque_n_m", "N m", lambda r: np.max(r.metrics["peak_torque_n_m"], axis=1)),
+    "max_pitch_deg": ("peak_pitch_deg", "deg", lambda r: np.degrees(r.metrics["peak_pitch_rad"])),
+}
+
+
+def _time_ranking(case: Case, K: np.ndarray, o) -> dict:
+    """Sobol indices of a simulated metric (its worst over the case's manoeuvres, per model) and the cuts
+    through the worst Saltelli point; the conditional failure fractions need Monte Carlo runs (a campaign)."""
+    from robust.analysis.sensitivity import SOBOL_TIME_BASE_SAMPLES, sobol_of
+    from robust.simulate import simulate
+
+    row = {"requirement": o.key, "metric": None, "sobol": None, "conditional": None, "status": o.status}
+    if o.key not in TIME_RANKED or not case.manoeuvres:
+        row["why"] = (
+            "not ranked in the dossier: a survivable step or a fall is found by repeated simulation per model, "
+            "too costly for N (k + 2) models; the worst-location figure shows where it fails"
+        )
+        return row
+    name, unit, pick = TIME_RANKED[o.key]
+
+    def f(X: np.ndarray) -> np.ndarray:
+        plant = case.box.plant(X)
+        return np.max([pick(simulate(plant, K, m, case.controller)) for m in case.manoeuvres], axis=0)
+
+    seen: dict[str, np.ndarray] = {}
+
+    def keep(X: np.ndarray) -> np.ndarray:
+        y = f(X)
+        seen["X"], seen["y"] = X, y
+        return y
+
+    try:
+        sob = sobol_of(
+            case.box,
+            keep,
+            name,
+            base_samples=SOBOL_TIME_BASE_SAMPLES,
+            seed=case.study.seed,
+            confidence=case.study.confidence,
+        )
+        why = ""
+    except ValueError as exc:
+        sob, why = None, str(exc)
+    row.update({"metric": name, "sobol": sob, "why": why})
+    if "X" in seen and np.all(np.isfinite(seen["y"])):
+        row["cuts"] = _cuts(case, K, name, seen["X"], seen["y"], "max", f=f, unit=unit)
+    return row
+
+
 def _metric_unit(metric: str) -> str:
     from robust.analysis.metrics import METRICS
 
@@ -329,7 +371,17 @@ def _metric_unit(metric: str) -> str:
 CUT_POINTS = 21  # points along each parameter in the one-at-a-time cuts through the worst sample
 
 
-def _cuts(case: Case, K: np.ndarray, metric: str, samples: np.ndarray, values: np.ndarray, kind: str) -> dict:
+def _cuts(
+    case: Case,
+    K: np.ndarray,
+    metric: str,
+    samples: np.ndarray,
+    values: np.ndarray,
+    kind: str,
+    *,
+    f=None,
+    unit: str | None = None,
+) -> dict:
     """The metric along each parameter's range with the other parameters held at the worst sample's values:
     which tolerance, moved alone from the worst point, changes the worst case most."""
     worst = int(np.argmin(values) if kind == "min" else np.argmax(values))
@@ -339,11 +391,11 @@ def _cuts(case: Case, K: np.ndarray, metric: str, samples: np.ndarray, values: n
     pts = np.repeat(at[None, :], k * CUT_POINTS, axis=0)
     for j in range(k):
         pts[j * CUT_POINTS : (j + 1) * CUT_POINTS, j] = case.box.low[j] + u * (case.box.high[j] - case.box.low[j])
-    v = evaluate(case.box, pts, K, names=(metric,))[metric].reshape(k, CUT_POINTS)
+    v = (evaluate(case.box, pts, K, names=(metric,))[metric] if f is None else f(pts)).reshape(k, CUT_POINTS)
     return {
         "position": u,
         "values": v,
-        "unit": _metric_unit(metric),
+        "unit": _metric_unit(metric) if unit is None else unit,
         "at": dict(zip(case.box.names, map(float, at))),
         "worst": float(values[worst]),
     }

@@ -17,6 +17,7 @@ import numpy as np
 from robust.analysis.metrics import METRICS, evaluate
 from robust.uncertainty import Box
 
+SOBOL_TIME_BASE_SAMPLES = 64  # the same for a simulated metric: N (k + 2) runs per manoeuvre
 SOBOL_BASE_SAMPLES = 256  # Saltelli's N in the dossier's ranking: N (k + 2) evaluations of a linear metric
 
 
@@ -50,11 +51,31 @@ def sobol_indices(
     evaluated at ``N (k + 2)`` points.  Metrics that are infinite somewhere
     (an unbounded margin) are refused: their variance is undefined.
     """
+    if metric not in METRICS:
+        raise ValueError(f"metric: expected one of {', '.join(METRICS)}, got {metric!r}")
+    return sobol_of(
+        box,
+        lambda X: evaluate(box, X, K, names=(metric,))[metric],
+        metric,
+        base_samples=base_samples,
+        seed=seed,
+        confidence=confidence,
+    )
+
+
+def sobol_of(
+    box: Box,
+    f,
+    metric: str,
+    *,
+    base_samples: int = 1024,
+    seed: int = 0,
+    confidence: float = 0.95,
+) -> SensitivityResult:
+    """Sobol indices of any batched function ``f(points) -> values`` over the box (a simulated metric too)."""
     from SALib.analyze import sobol as analyze
     from SALib.sample import sobol as sample
 
-    if metric not in METRICS:
-        raise ValueError(f"metric: expected one of {', '.join(METRICS)}, got {metric!r}")
     if not box.ranges:
         raise ValueError("sensitivity needs [ranges]: with one nominal vehicle nothing varies")
     if base_samples < 2 or base_samples & (base_samples - 1):
@@ -66,7 +87,7 @@ def sobol_indices(
         "bounds": [[float(lo), float(hi)] for lo, hi in zip(box.low, box.high)],
     }
     X = sample.sample(problem, base_samples, calc_second_order=False, seed=seed)
-    y = evaluate(box, X, K, names=(metric,))[metric]
+    y = np.asarray(f(X), dtype=float)
     if not np.all(np.isfinite(y)):
         raise ValueError(f"metric {metric!r} is unbounded somewhere in the box: its variance is undefined")
     res = analyze.analyze(problem, y, calc_second_order=False, conf_level=confidence, seed=seed, print_to_console=False)

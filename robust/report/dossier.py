@@ -782,7 +782,7 @@ def sampled_margin_blocks(d) -> list:
 
 def tolerance_blocks(d) -> list:
     """The section "Which tolerance drives each requirement" (Sobol indices and failure per sub-range)."""
-    from robust.analysis.sensitivity import SOBOL_BASE_SAMPLES
+    from robust.analysis.sensitivity import SOBOL_BASE_SAMPLES, SOBOL_TIME_BASE_SAMPLES
     from robust.verdict import LABELS
 
     case = d.case
@@ -800,18 +800,21 @@ def tolerance_blocks(d) -> list:
                 if plan == "monte_carlo"
                 else " (not Monte Carlo: fractions only, no probability)"
             )
-            + ": where in a tolerance the failures come from."
+            + ": where in a tolerance the failures come from. Peak wheel torque and peak pitch are ranked on the "
+            f"nonlinear model (worst over the case's manoeuvres per model, N = {SOBOL_TIME_BASE_SAMPLES}, so "
+            "N (k + 2) runs per manoeuvre); their failure fractions per range need Monte Carlo runs (a campaign), "
+            "so those columns are empty."
         )
     )
     for name, rows in d.tolerances.items():
         for r in rows:
             label = LABELS.get(r["requirement"], r["requirement"])
             if r["metric"] is None:
-                B.append(_p(f"'{name}', {label}: not ranked ({r['why']})."))
+                B.append(_p(f"'{name}', {label}: {r['why']}."))
                 continue
             sob, cond = r["sobol"], r["conditional"]
             table = []
-            for i, par in enumerate(cond.parameters):
+            for i, par in enumerate(case.box.names):
                 cells = [par]
                 if sob is not None:
                     cells += [
@@ -820,6 +823,10 @@ def tolerance_blocks(d) -> list:
                     ]
                 else:
                     cells += ["-", "-"]
+                if cond is None:  # a simulated metric: Sobol indices only (failure fractions need a campaign)
+                    cells += ["-"] * 4
+                    table.append(cells)
+                    continue
                 for b in range(cond.samples.shape[1]):
                     n, f = int(cond.samples[i, b]), int(cond.failures[i, b])
                     bound = f", P at most {fmt(float(cond.upper[i, b]), 2)}" if plan == "monte_carlo" else ""
