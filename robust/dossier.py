@@ -327,8 +327,9 @@ def _time_ranking(case: Case, K: np.ndarray, o) -> dict:
     row = {"requirement": o.key, "metric": None, "sobol": None, "conditional": None, "status": o.status}
     if o.key not in TIME_RANKED or not case.manoeuvres:
         row["why"] = (
-            "not ranked in the dossier: a survivable step or a fall is found by repeated simulation per model, "
-            "too costly for N (k + 2) models; the worst-location figure shows where it fails"
+            "not ranked in the dossier: of the time-domain requirements only peak wheel torque and peak pitch are "
+            "(a settling time can be unbounded, so its variance is undefined; a survivable step or a fall needs a "
+            "search per model, too costly for N (k + 2) models); the worst-location figure shows where it fails"
         )
         return row
     name, unit, pick = TIME_RANKED[o.key]
