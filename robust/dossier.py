@@ -253,7 +253,7 @@ def _tolerance_studies(case: Case, gains, verdicts, samples: np.ndarray) -> dict
     indices of the metric over the box and the failure fraction per sub-range of each parameter on the
     check's Monte Carlo samples.  Failing time-domain requirements are listed as not ranked."""
     from robust.analysis.metrics import METRICS
-    from robust.analysis.sensitivity import SOBOL_BASE_SAMPLES, conditional_failure, sobol_indices
+    from robust.analysis.sensitivity import SOBOL_BASE_SAMPLES, conditional_failure
     from robust.verdict import margin_scale
 
     out: dict[str, list[dict]] = {}
@@ -284,18 +284,12 @@ def _tolerance_studies(case: Case, gains, verdicts, samples: np.ndarray) -> dict
                     (y <= bound) if o.key == "closed_loop_stable" else ((y < bound) if kind == "min" else (y > bound))
                 )
                 cond = conditional_failure(case.box, samples, failed, name, confidence=case.study.confidence)
-                try:
-                    sob = sobol_indices(
-                        case.box,
-                        g.K,
-                        name,
-                        base_samples=SOBOL_BASE_SAMPLES,
-                        seed=case.study.seed,
-                        confidence=case.study.confidence,
-                    )
-                    why = ""
-                except ValueError as exc:
-                    sob, why = None, str(exc)
+                sob, why = _sobol_or_why(
+                    case,
+                    lambda X, K=g.K, name=name: evaluate(case.box, X, K, names=(name,))[name],
+                    name,
+                    SOBOL_BASE_SAMPLES,
+                )
                 rows.append(
                     {
                         "requirement": o.key,
@@ -321,7 +315,7 @@ TIME_RANKED = {
 def _time_ranking(case: Case, K: np.ndarray, o) -> dict:
     """Sobol indices of a simulated metric (its worst over the case's manoeuvres, per model) and the cuts
     through the worst Saltelli point; the conditional failure fractions need Monte Carlo runs (a campaign)."""
-    from robust.analysis.sensitivity import SOBOL_TIME_BASE_SAMPLES, sobol_of
+    from robust.analysis.sensitivity import SOBOL_TIME_BASE_SAMPLES
     from robust.simulate import simulate
 
     row = {"requirement": o.key, "metric": None, "sobol": None, "conditional": None, "status": o.status}
@@ -345,22 +339,23 @@ def _time_ranking(case: Case, K: np.ndarray, o) -> dict:
         seen["X"], seen["y"] = X, y
         return y
 
-    try:
-        sob = sobol_of(
-            case.box,
-            keep,
-            name,
-            base_samples=SOBOL_TIME_BASE_SAMPLES,
-            seed=case.study.seed,
-            confidence=case.study.confidence,
-        )
-        why = ""
-    except ValueError as exc:
-        sob, why = None, str(exc)
+    sob, why = _sobol_or_why(case, keep, name, SOBOL_TIME_BASE_SAMPLES)
     row.update({"metric": name, "sobol": sob, "why": why})
     if "X" in seen and np.all(np.isfinite(seen["y"])):
         row["cuts"] = _cuts(case, K, name, seen["X"], seen["y"], "max", f=f, unit=unit)
     return row
+
+
+def _sobol_or_why(case: Case, f, name: str, base_samples: int):
+    """Sobol indices of ``f`` over the box with the study's seed and confidence, or ``None`` and the reason."""
+    from robust.analysis.sensitivity import sobol_of
+
+    try:
+        return sobol_of(
+            case.box, f, name, base_samples=base_samples, seed=case.study.seed, confidence=case.study.confidence
+        ), ""
+    except ValueError as exc:
+        return None, str(exc)
 
 
 def _metric_unit(metric: str) -> str:

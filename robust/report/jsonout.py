@@ -171,12 +171,8 @@ def to_si(node: Any) -> Any:
                 conv = SI_UNITS.get(u)
                 u_si = conv[0] if conv else u
                 new_value[name + UNIT_SUFFIX.get(u_si, "")] = _scale(values, conv[1], records=False) if conv else values
-        out[new_key] = to_si(new_value) if new_value is value else _si_children(new_value)
+        out[new_key] = to_si(new_value)
     return out
-
-
-def _si_children(value: Any) -> Any:
-    return to_si(value) if isinstance(value, (dict, list)) else value
 
 
 def _nullify(node: Any, path: tuple, sink: list) -> Any:
