@@ -481,6 +481,8 @@ def bracket_rows(
     bounds its amplitude factor.  Every round is one kernel call over all rows
     times ``points_per_round`` amplitudes.  Returns ``(lo, hi, top_ok)`` as
     amplitude factors.
+
+    Rows handled at their upper bound are not simulated again (their result is that bound).
     """
     n = P.shape[0]
     m = points_per_round
@@ -490,17 +492,21 @@ def bracket_rows(
     top_ok = _handled(P, Ks, M, controller, hi, progress)
     if advance is not None:
         advance(1)
-    rep = np.repeat(np.arange(n), m)
-    Pr, Kr, Mr = P[rep], Ks[rep], M[rep]
     frac = np.arange(1, m + 1) / (m + 1)
+    active = np.flatnonzero(~top_ok)  # a row handled at its upper bound is done (lo = hi = upper)
     for _ in range(rounds):
-        amps = lo[:, None] + (hi - lo)[:, None] * frac[None, :]
-        ok = _handled(Pr, Kr, Mr, controller, amps.reshape(-1), progress).reshape(n, m)
-        first_fail = np.where(~ok.all(axis=1), np.argmin(ok, axis=1), m)
-        new_lo = np.where(first_fail > 0, amps[np.arange(n), np.maximum(first_fail - 1, 0)], lo)
-        new_hi = np.where(first_fail < m, amps[np.arange(n), np.minimum(first_fail, m - 1)], hi)
-        lo = np.where(top_ok, hi, new_lo)
-        hi = np.where(top_ok, hi, new_hi)
+        a = active
+        if a.size:
+            rep = np.repeat(a, m)
+            amps = lo[a, None] + (hi[a] - lo[a])[:, None] * frac[None, :]
+            ok = _handled(P[rep], Ks[rep], M[rep], controller, amps.reshape(-1), progress).reshape(a.size, m)
+            first_fail = np.where(~ok.all(axis=1), np.argmin(ok, axis=1), m)
+            rows = np.arange(a.size)
+            new_lo = np.where(first_fail > 0, amps[rows, np.maximum(first_fail - 1, 0)], lo[a])
+            new_hi = np.where(first_fail < m, amps[rows, np.minimum(first_fail, m - 1)], hi[a])
+            lo[a], hi[a] = new_lo, new_hi
         if advance is not None:
             advance(1)
+    lo = np.where(top_ok, hi, lo)
     return lo, hi, top_ok
+

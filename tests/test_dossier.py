@@ -345,3 +345,26 @@ def test_tolerance_section_matches_the_check(two_runs):
                 pos = (cuts["at"][name] - lo) / (hi - lo)
                 got = np.interp(pos, cuts["position"], cuts["values"][j])
                 assert got == pytest.approx(cuts["worst"], rel=0.02, abs=1e-9), (name, got, cuts["worst"])
+
+
+def test_figures_drawn_in_processes_equal_those_drawn_in_one(two_runs):
+    """Figures are drawn in forked processes on Linux; each is drawn independently, so the SVG text and the
+    PDF's PNG must be the same bytes as when all are drawn in this process (and the same in both runs)."""
+    from robust.report import figures as F
+    from robust.report.dossier import draw_figures
+
+    a, b, _ = two_runs
+    for p in sorted((a / "figures").glob("*.svg")):
+        assert p.read_bytes() == (b / "figures" / p.name).read_bytes(), p.name
+    w = np.logspace(-1, 2, 40)
+    rng = np.random.default_rng(0)
+    plan = []
+    for k in range(5):
+        shapes = {key: np.abs(rng.normal(1.0, 0.3, (6, 2, w.size))) + 0.1 * k for key in ("L", "S", "T")}
+        plan.append((f"f{k}", f"figure {k}", lambda shapes=shapes, k=k: F.loop_shape_bands(w, shapes, f"case {k}")))
+    one = draw_figures(plan, workers=1)
+    two = draw_figures(plan, workers=2)
+    assert [f.name for f in one] == [f.name for f in two] == [f"f{k}" for k in range(5)]
+    for f, g in zip(one, two):
+        assert f.svg == g.svg and f.png == g.png and f.size_in == g.size_in
+        assert f.png.startswith(b"\x89PNG")

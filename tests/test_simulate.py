@@ -238,3 +238,38 @@ def test_push_moves_the_vehicle(setup):
 def test_replace_controller_keeps_defaults():
     c = replace(Controller(), latency_s=0.002)
     assert c.sample_period_s == 0.005 and c.latency_s == 0.002
+
+
+def test_bracketing_equals_the_plain_algorithm_exactly(cart):
+    """The largest-step bracketing skips the rows handled at their upper bound; it must still equal, to the
+    bit, the plain algorithm written out here (every row simulated every round).  Reference: the
+    algorithm's own definition (exact equality, no tolerance)."""
+    from robust.simulate import _handled, bracket_rows, manoeuvre_columns, plant_columns
+    from robust.uncertainty import monte_carlo
+
+    case = cart
+    ctl = case.controller
+    pts = np.concatenate([corners(case.box), monte_carlo(case.box, 24, seed=3)])
+    plant = case.box.plant(pts)
+    K = resolve_gain(case, case.gains[0]).K
+    man = Manoeuvre("probe", "speed_step", 2.0, start_s=0.1, speed_m_s=1.0)
+    P = plant_columns(plant, ctl)
+    M = manoeuvre_columns(man, ctl, np.ones(plant.n), stop=True)
+    Ks = np.broadcast_to(K, (plant.n, 2, 4))
+    wide = bracket_rows(P, Ks, M, ctl, upper=np.full(plant.n, 4.0), rounds=3, points_per_round=5)
+    upper = np.where(np.arange(plant.n) % 2 == 0, float(np.median(wide[0])), 4.0)  # some rows pass their bound
+    full = bracket_rows(P, Ks, M, ctl, upper=upper, rounds=3, points_per_round=5)
+    assert full[2].any() and not full[2].all()  # both kinds of rows are present
+    lo, hi = np.zeros(plant.n), upper.copy()
+    top = _handled(P, Ks, M, ctl, hi)
+    frac = np.arange(1, 6) / 6
+    rep = np.repeat(np.arange(plant.n), 5)
+    for _ in range(3):
+        amps = lo[:, None] + (hi - lo)[:, None] * frac[None, :]
+        ok = _handled(P[rep], Ks[rep], M[rep], ctl, amps.reshape(-1)).reshape(plant.n, 5)
+        ff = np.where(~ok.all(axis=1), np.argmin(ok, axis=1), 5)
+        new_lo = np.where(ff > 0, amps[np.arange(plant.n), np.maximum(ff - 1, 0)], lo)
+        new_hi = np.where(ff < 5, amps[np.arange(plant.n), np.minimum(ff, 4)], hi)
+        lo, hi = np.where(top, hi, new_lo), np.where(top, hi, new_hi)
+    np.testing.assert_array_equal(full[0], lo)
+    np.testing.assert_array_equal(full[1], hi)

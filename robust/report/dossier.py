@@ -11,6 +11,7 @@ from __future__ import annotations
 import csv
 import html
 import io
+import os
 import re
 from dataclasses import dataclass
 from pathlib import Path
@@ -96,10 +97,13 @@ class Table:
 
 @dataclass
 class Figure:
+    """A drawn figure: its SVG text (files, HTML, Markdown) and its raster for the PDF (PNG bytes)."""
+
     name: str
     svg: str
     caption: str
-    mpl: object = None
+    png: bytes | None = None
+    size_in: tuple[float, float] = (10.0, 4.0)
 
 
 def _h(level, text):
@@ -684,11 +688,57 @@ def _blocks(d, today: str) -> tuple[list, list[Figure]]:
             B.append(_h(3, f"{i.name} (SHA-256 {i.sha256})"))
             B.append(("pre", i.content.decode("utf-8", errors="replace")))
     B.append(_h(2, "Figures"))
-    figs = []
-    for name, caption, make in figure_plan(d):
-        fig = make()  # drawn once: the same figure goes into the SVG files, the HTML and the PDF
-        figs.append(Figure(name, F.svg(fig, close=False), caption, mpl=fig))
-    return B, figs
+    return B, draw_figures(figure_plan(d))
+
+
+_PLAN: list = []  # the figure plan a forked drawing process reads (set just before the processes start)
+
+
+def _draw(i: int) -> tuple[str, bytes, tuple[float, float]]:
+    """Draw figure ``i`` of :data:`_PLAN` once and render it twice: SVG text and the PDF's PNG."""
+    import matplotlib.pyplot as plt
+
+    from robust.report.pdf import FIGURE_DPI
+
+    _name, _caption, make = _PLAN[i]
+    fig = make()
+    try:
+        text = F.svg(fig, close=False)
+        buf = io.BytesIO()
+        fig.savefig(buf, format="png", dpi=FIGURE_DPI)
+        size = tuple(float(v) for v in fig.get_size_inches())
+    finally:
+        plt.close(fig)
+    return text, buf.getvalue(), size
+
+
+def figure_workers(count: int) -> int:
+    """Processes that draw ``count`` figures: up to two on Linux (forked, so the figure data is shared, not
+    copied through pickles), one elsewhere.  Drawing is independent per figure, so the files are the same."""
+    import sys
+
+    if sys.platform != "linux" or count < 4:
+        return 1
+    return max(1, min(2, os.cpu_count() or 1))
+
+
+def draw_figures(plan: list, *, workers: int | None = None) -> list[Figure]:
+    """Draw every figure of ``plan`` (``(name, caption, factory)``), in forked processes when that helps."""
+    global _PLAN
+    n = figure_workers(len(plan)) if workers is None else workers
+    _PLAN = list(plan)
+    try:
+        if n <= 1:
+            drawn = [_draw(i) for i in range(len(plan))]
+        else:
+            import multiprocessing
+            from concurrent.futures import ProcessPoolExecutor
+
+            with ProcessPoolExecutor(max_workers=n, mp_context=multiprocessing.get_context("fork")) as pool:
+                drawn = list(pool.map(_draw, range(len(plan))))
+    finally:
+        _PLAN = []
+    return [Figure(name, text, caption, png=png, size_in=size) for (name, caption, _m), (text, png, size) in zip(plan, drawn)]
 
 
 def _db(v: float) -> str:
@@ -1134,14 +1184,7 @@ def write_dossier(d, target: FolderTarget, *, today: str) -> dict[str, Path]:
     """Write every dossier file into the checked folder ``target`` crash-safely; returns the main paths."""
     out_dir = target.path
     blocks, figs = _blocks(d, today)
-    try:
-        _write_files(d, target, blocks, figs, today)
-    finally:
-        import matplotlib.pyplot as plt
-
-        for f in figs:
-            if f.mpl is not None:
-                plt.close(f.mpl)
+    _write_files(d, target, blocks, figs, today)
     return {
         "folder": out_dir,
         "html": out_dir / "dossier.html",

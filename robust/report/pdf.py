@@ -104,10 +104,8 @@ def _table(t, styles, avail: float):
 def _figure(f, styles, avail_w: float, avail_h: float):
     from reportlab.platypus import Image, Paragraph, Spacer
 
-    buf = io.BytesIO()
-    f.mpl.savefig(buf, format="png", dpi=FIGURE_DPI)
-    buf.seek(0)
-    w_in, h_in = f.mpl.get_size_inches()
+    buf = io.BytesIO(f.png)
+    w_in, h_in = f.size_in
     width = avail_w
     height = width * h_in / w_in
     if height > avail_h - 40:
@@ -174,10 +172,17 @@ def render_pdf(blocks, figs, path: Path, title: str) -> None:
             story.append(Preformatted(b[1].rstrip("\n"), styles["pre"], maxLineLength=170, newLineChars="  "))
         else:
             story.append(Paragraph(escape(b[1]), styles["body"]))
-    shown = [f for f in figs if f.mpl is not None]
+    shown = [f for f in figs if f.png is not None]
     if shown:
         story.append(PageBreak())
         story.append(Paragraph("Figures", styles["h2"]))
         for f in shown:
             story += _figure(f, styles, avail_w, avail_h)
-    doc.build(story, canvasmaker=NumberedCanvas)
+    from reportlab import rl_config
+
+    a85 = rl_config.useA85
+    rl_config.useA85 = 0  # binary image streams: the ASCII-85 text encoding is pure Python and slow
+    try:
+        doc.build(story, canvasmaker=NumberedCanvas)
+    finally:
+        rl_config.useA85 = a85
