@@ -509,4 +509,3 @@ def bracket_rows(
             advance(1)
     lo = np.where(top_ok, hi, lo)
     return lo, hi, top_ok
-

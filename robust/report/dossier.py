@@ -137,7 +137,6 @@ def _ranges_table(case) -> Table:
 def _blocks(d, today: str) -> tuple[list, list[Figure]]:
     case, chk, tm = d.case, d.check, d.time
     B: list = []
-    figs: list[Figure] = []
     st = d.stamp
     B.append(_h(1, f"Design dossier: {case.title}"))
     B.append(
@@ -738,7 +737,10 @@ def draw_figures(plan: list, *, workers: int | None = None) -> list[Figure]:
                 drawn = list(pool.map(_draw, range(len(plan))))
     finally:
         _PLAN = []
-    return [Figure(name, text, caption, png=png, size_in=size) for (name, caption, _m), (text, png, size) in zip(plan, drawn)]
+    return [
+        Figure(name, text, caption, png=png, size_in=size)
+        for (name, caption, _m), (text, png, size) in zip(plan, drawn)
+    ]
 
 
 def _db(v: float) -> str:
