@@ -86,7 +86,7 @@ def _to_plain_raw(value: Any) -> Any:
         return [_to_plain_raw(v) for v in value]
     if isinstance(value, np.ndarray):
         if value.dtype.kind in "biuf":
-            return value.tolist()
+            return value.copy()  # kept whole (a leaf) through the unit pass; listed by _nullify
         return _to_plain_raw(value.tolist())
     if isinstance(value, (np.bool_, bool)):
         return bool(value)
@@ -131,6 +131,8 @@ def _scale(node: Any, factor: float, *, records: bool = True) -> Any:
     :data:`VALUE_FIELDS` and percentiles, never counts or parameter points."""
     if isinstance(node, bool) or node is None:
         return node
+    if isinstance(node, np.ndarray):
+        return node if node.dtype.kind == "b" else node.astype(float) * factor
     if isinstance(node, (int, float)):
         return float(node) * factor
     if isinstance(node, list):
@@ -142,6 +144,8 @@ def _scale(node: Any, factor: float, *, records: bool = True) -> Any:
 
 def to_si(node: Any) -> Any:
     """Rewrite a plain document in SI units with unit-suffixed keys (see the module text)."""
+    if isinstance(node, np.ndarray):
+        return node
     if isinstance(node, list):
         return [to_si(v) for v in node]
     if not isinstance(node, dict):
@@ -175,30 +179,78 @@ def to_si(node: Any) -> Any:
     return out
 
 
-def _nullify(node: Any, path: tuple, sink: list) -> Any:
+def _word(x: float) -> str:
+    return "nan" if math.isnan(x) else ("inf" if x > 0 else "-inf")
+
+
+def _array(a: np.ndarray, path: tuple, sink: list) -> list:
+    """A numeric array as nested lists, its non-finite entries ``None`` and recorded (row-major order)."""
+    if a.dtype.kind != "f":
+        return a.tolist()
+    bad = ~np.isfinite(a)
+    if not bad.any():
+        return a.tolist()
+    for idx in np.argwhere(bad):
+        sink.append((_pointer((*path, *map(int, idx))), _word(float(a[tuple(idx)]))))
+    obj = a.astype(object)
+    obj[bad] = None
+    return obj.tolist()
+
+
+def _nullify(node: Any, path: tuple, sink: list, packed: list | None = None) -> Any:
     if isinstance(node, dict):
-        return {k: _nullify(v, (*path, k), sink) for k, v in node.items()}
+        return {k: _nullify(v, (*path, k), sink, packed) for k, v in node.items()}
     if isinstance(node, list):
-        return [_nullify(v, (*path, i), sink) for i, v in enumerate(node)]
+        return [_nullify(v, (*path, i), sink, packed) for i, v in enumerate(node)]
+    if isinstance(node, np.ndarray):
+        values = _array(node, path, sink)
+        if packed is None or node.size < PACK_MIN_SIZE:
+            return values
+        packed.append(json.dumps(values, allow_nan=False))  # compact, by the C encoder
+        return f"{_TOKEN}{len(packed) - 1}{_TOKEN}"
     if isinstance(node, float) and not math.isfinite(node):
-        sink.append((_pointer(path), "nan" if math.isnan(node) else ("inf" if node > 0 else "-inf")))
+        sink.append((_pointer(path), _word(node)))
         return None
     return node
+
+
+PACK_MIN_SIZE = 64  # numeric arrays at least this long are written on one line (fast, and easier to scan)
+_TOKEN = "\x00robust-array\x00"
+_TOKEN_RE = re.compile(r'"\\u0000robust-array\\u0000(\d+)\\u0000robust-array\\u0000"')
 
 
 def plain_document(value: Any) -> Any:
     """:func:`to_plain` in SI units (:func:`to_si`), plus the top-level ``non_finite`` list when ``value``
     renders as an object."""
+    return _document(value, None)
+
+
+def _document(value: Any, packed: list | None) -> Any:
     sink: list = []
-    doc = _nullify(to_si(_to_plain_raw(value)), (), sink)
+    doc = _nullify(to_si(_to_plain_raw(value)), (), sink, packed)
     if isinstance(doc, dict):
         doc["non_finite"] = [{"path": p, "value": v, "meaning": MEANINGS[v]} for p, v in sink]
     return doc
 
 
 def dumps(value: Any) -> str:
-    """Stable JSON text (sorted keys, two-space indent, trailing newline); strict JSON (no NaN or Infinity)."""
-    return json.dumps(plain_document(value), indent=2, sort_keys=True, allow_nan=False) + "\n"
+    """Stable JSON text (sorted keys, two-space indent, trailing newline); strict JSON (no NaN or Infinity).
+
+    Long numeric arrays are written compactly on one line each (the indenting encoder is pure Python and
+    took seconds on a dossier's time series); the parsed document is the same as :func:`plain_document`.
+    """
+    packed: list[str] = []
+    text = json.dumps(_document(value, packed), indent=2, sort_keys=True, allow_nan=False)
+    seen: list[int] = []
+
+    def put(m: re.Match) -> str:
+        seen.append(int(m.group(1)))
+        return packed[int(m.group(1))]
+
+    out = _TOKEN_RE.sub(put, text)
+    if sorted(seen) != list(range(len(packed))):  # a user string imitating a token: take the slow, plain way
+        out = json.dumps(plain_document(value), indent=2, sort_keys=True, allow_nan=False)
+    return out + "\n"
 
 
 def restore_non_finite(doc: Any) -> Any:
