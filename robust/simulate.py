@@ -493,13 +493,13 @@ def bracket_rows(
     if advance is not None:
         advance(1)
     frac = np.arange(1, m + 1) / (m + 1)
-    active = np.flatnonzero(~top_ok)  # a row handled at its upper bound is done (lo = hi = upper)
+    a = np.flatnonzero(~top_ok)  # a row handled at its upper bound is done (lo = hi = upper)
+    rep = np.repeat(a, m)
+    Pr, Kr, Mr = P[rep], Ks[rep], M[rep]
     for _ in range(rounds):
-        a = active
         if a.size:
-            rep = np.repeat(a, m)
             amps = lo[a, None] + (hi[a] - lo[a])[:, None] * frac[None, :]
-            ok = _handled(P[rep], Ks[rep], M[rep], controller, amps.reshape(-1), progress).reshape(a.size, m)
+            ok = _handled(Pr, Kr, Mr, controller, amps.reshape(-1), progress).reshape(a.size, m)
             first_fail = np.where(~ok.all(axis=1), np.argmin(ok, axis=1), m)
             rows = np.arange(a.size)
             new_lo = np.where(first_fail > 0, amps[rows, np.maximum(first_fail - 1, 0)], lo[a])

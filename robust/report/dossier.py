@@ -984,7 +984,7 @@ def front_blocks(fr) -> list:
 def figure_plan(d) -> list[tuple[str, str, object]]:
     """The dossier's figures as ``(name, caption, factory)``; each factory draws a new Figure.
 
-    Drawn once for the SVG files and HTML and once more (vector) for the PDF.
+    Each is drawn once (:func:`draw_figures`): SVG for the files and the HTML, PNG for the PDF.
     """
     case, chk, tm = d.case, d.check, d.time
     req = case.requirements

@@ -86,7 +86,7 @@ def _to_plain_raw(value: Any) -> Any:
         return [_to_plain_raw(v) for v in value]
     if isinstance(value, np.ndarray):
         if value.dtype.kind in "biuf":
-            return value.copy()  # kept whole (a leaf) through the unit pass; listed by _nullify
+            return value  # kept whole (a leaf) through the unit pass, never changed in place; listed by _nullify
         return _to_plain_raw(value.tolist())
     if isinstance(value, (np.bool_, bool)):
         return bool(value)
