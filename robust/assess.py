@@ -92,7 +92,7 @@ def certify_gains(case: Case, gains: list[GainSet], check: CheckResult, *, progr
             continue  # unstable somewhere in the box: nothing to certify
         if progress is not None:
             progress(f"{g.name}: certifying its decay rate on {poly.vertices} polytope vertices")
-        out[g.name] = certify_gain(poly, g.K, input_scale=spec.input_scale, upper=worst, steps=6)
+        out[g.name] = certify_gain(poly, g.K, input_scale=spec.input_scale, upper=worst)
     return out
 
 

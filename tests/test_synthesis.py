@@ -204,14 +204,14 @@ def test_fixed_gain_certificate_agrees_with_the_synthesis_and_never_exceeds_the_
     spec, _ = make_spec(case)
     pts = np.concatenate([corners(case.box), monte_carlo(case.box, 500, seed=11)])
     sampled = float(evaluate(case.box, pts, d.gain.K, names=("decay_rate",))["decay_rate"].min())
-    c = certify_gain(d.polytope, d.gain.K, input_scale=spec.input_scale, upper=sampled, steps=6)
+    c = certify_gain(d.polytope, d.gain.K, input_scale=spec.input_scale, upper=sampled)
     assert c.certificate is not None and c.certificate.passed
     assert c.decay_rate >= d.synthesis.decay_rate - c.resolution
     assert c.decay_rate <= sampled
     # a destabilising gain cannot be certified stable
     bad = d.gain.K.copy()
     bad[:, 2:] *= -1
-    assert certify_gain(d.polytope, bad, input_scale=spec.input_scale, upper=1.0, steps=2).decay_rate is None
+    assert certify_gain(d.polytope, bad, input_scale=spec.input_scale, upper=1.0).decay_rate is None
 
 
 def test_check_certify_marks_evidence_certified(capsys):
@@ -309,8 +309,8 @@ def test_fixed_gain_certificate_widens_an_active_bound(transporter):
 
     K = resolve_gain(transporter, transporter.gains[0]).K
     true = float(evaluate(box, box.nominal[None, :], K, names=("decay_rate",))["decay_rate"][0])
-    wide = certify_gain(poly, K, input_scale=20.0, upper=true, steps=6)
-    tight = certify_gain(poly, K, input_scale=20.0, upper=true, steps=6, lyapunov_bound=1.5)
+    wide = certify_gain(poly, K, input_scale=20.0, upper=true)
+    tight = certify_gain(poly, K, input_scale=20.0, upper=true, lyapunov_bound=1.5)
     assert tight.lyapunov_bound > 1.5
     assert tight.decay_rate is not None and wide.decay_rate is not None
     assert abs(tight.decay_rate - wide.decay_rate) <= 2 * wide.resolution

@@ -54,6 +54,16 @@ SOLVER_OPTIONS_ESCALATED = {
 }
 
 
+# the rate search's solves: its points are re-certified exactly by numpy, so the solver's accuracy only sets
+# how close to the optimum the search gets, never what is certified
+# (one solver: a search solve that fails only ends the search, so a slow second solver is not worth its time)
+SEARCH_OPTIONS = {
+    "CLARABEL": {"max_iter": 200, "time_limit": 20.0, "tol_gap_abs": 1e-6, "tol_gap_rel": 1e-6, "tol_feas": 1e-7},
+}
+# the smallest gain at the rate found: a feasible solve takes a few seconds, one that takes longer is at the edge
+FINAL_OPTIONS = {"CLARABEL": {"max_iter": 200, "time_limit": 8.0}}
+
+
 def proved_infeasible(status: str) -> bool:
     """True only when a solver proved infeasibility (not for limits, failures or inaccurate points)."""
     return "infeasible" in str(status) and "inaccurate" not in str(status)
@@ -241,10 +251,13 @@ def explain_status(status: str) -> str:
     return "; ".join(out)
 
 
-def _solve(prob: cp.Problem, effort: int = 0):
+def _solve(prob: cp.Problem, effort: int = 0, options: dict | None = None):
     last = None
-    options = SOLVER_OPTIONS if effort == 0 else SOLVER_OPTIONS_ESCALATED
+    if options is None:
+        options = SOLVER_OPTIONS if effort == 0 else SOLVER_OPTIONS_ESCALATED
     for name in SOLVERS:
+        if name not in options:
+            continue
         try:
             with warnings.catch_warnings():  # the status is handled below and the certificate re-checked
                 warnings.simplefilter("ignore", UserWarning)
@@ -265,21 +278,25 @@ def _solve(prob: cp.Problem, effort: int = 0):
 # LMIs once and each further solve only refills the rate.  Keyed by identity; the cache keeps the polytope
 # and spec alive, so an identity is never reused while its entry exists.
 _PROBLEMS: dict = {}
-_PROBLEMS_KEPT = 2
+_PROBLEMS_KEPT = 4
 
 
-def _common(poly: Polytope, spec: Spec, alpha: float, delta: float, effort: int = 0):
-    key = (id(poly), id(spec), float(delta))
+def _problem(poly: Polytope, spec: Spec, delta: float, rate_slack: bool = False):
+    key = (id(poly), id(spec), float(delta), rate_slack)
     entry = _PROBLEMS.get(key)
     if entry is None or entry[0] is not poly or entry[1] is not spec:
-        entry = (poly, spec, _build_common(poly, spec, delta))
+        entry = (poly, spec, _build_common(poly, spec, delta, rate_slack))
         _PROBLEMS[key] = entry
         while len(_PROBLEMS) > _PROBLEMS_KEPT:
             _PROBLEMS.pop(next(iter(_PROBLEMS)))
-    prob, h = entry[2]
+    return entry[2]
+
+
+def _common(poly: Polytope, spec: Spec, alpha: float, delta: float, effort: int = 0, options: dict | None = None):
+    prob, h = _problem(poly, spec, delta)
     # the decay region, tightened as in _regions (a cost objective keeps it as asked: Q makes it strict)
-    h["two_alpha"].value = 2.0 * (alpha if spec.objective == "cost" else max(1.02 * alpha, alpha + 0.01))
-    solver, status = _solve(prob, effort)
+    h["two_alpha"].value = 2.0 * (alpha if spec.objective == "cost" else _tight(alpha))
+    solver, status = _solve(prob, effort, options)
     if solver is None:
         return None, status
     n = 4
@@ -294,8 +311,14 @@ def _common(poly: Polytope, spec: Spec, alpha: float, delta: float, effort: int 
     return {"K": K, "solver": solver, "status": status, "certificate": cert, "value": value}, status
 
 
-def _build_common(poly: Polytope, spec: Spec, delta: float):
-    """The common-Lyapunov problem with the decay rate as a parameter; returns ``(problem, handles)``."""
+def _build_common(poly: Polytope, spec: Spec, delta: float, rate_slack: bool = False):
+    """The common-Lyapunov problem with the decay rate as a parameter; returns ``(problem, handles)``.
+
+    With ``rate_slack`` the decay-region LMIs read ``... <= s I`` with a free ``s`` that is minimised (the
+    other constraints stay as they are): the problem is then feasible for every rate at which the other
+    constraints are, which is what :func:`_raise_rate` needs (a solve never has to prove infeasibility)."""
+    if rate_slack and spec.objective == "cost":
+        raise ValueError("the rate-slack problem is for the decay search, not the cost objective")
     if spec.max_frequency is not None and not disk_supported(poly):
         spec = replace(spec, max_frequency=None)
     two_alpha = cp.Parameter(name="two_alpha")
@@ -310,6 +333,7 @@ def _build_common(poly: Polytope, spec: Spec, delta: float):
         Y = K_s @ X1
     Z = np.zeros((n, n))
     cons = [X1 >> delta * np.eye(n), X1 << spec.lyapunov_bound * np.eye(n)]
+    s_rate = cp.Variable(name="rate_slack") if rate_slack else None
     # with a cost objective the positive definite Q already makes the Lyapunov
     # inequality strict, so the decay region is not tightened (the optimum then
     # equals the Riccati cost on a single model)
@@ -346,6 +370,8 @@ def _build_common(poly: Polytope, spec: Spec, delta: float):
                 )
                 big = cp.bmat([[blk, C.T], [C, -np.eye(n + 2)]])
                 cons.append(_sym(big) << -delta * np.eye(size + n + 2))
+            elif rate_slack and k == 0:
+                cons.append(_sym(blk) << s_rate * np.eye(size))
             else:
                 cons.append(_sym(blk) << -delta * np.eye(size))
     kappa = cp.Variable()
@@ -362,6 +388,9 @@ def _build_common(poly: Polytope, spec: Spec, delta: float):
         obj = gamma + 1e-6 * kappa
     else:
         cons.append(X1 >> np.eye(n) * (delta if extra else 1.0))
+    if rate_slack:
+        # the gain-size term only picks a moderate gain among the (many) points of equal slack
+        obj = s_rate + RATE_GAIN_WEIGHT * kappa
     prob = cp.Problem(cp.Minimize(obj), cons)
     handles = {
         "two_alpha": two_alpha,
@@ -370,6 +399,7 @@ def _build_common(poly: Polytope, spec: Spec, delta: float):
         "slacks": slacks,
         "gamma": gamma if spec.objective == "cost" else None,
         "spec": spec,
+        "rate_slack": s_rate,
     }
     return prob, handles
 
@@ -547,6 +577,198 @@ def _pdlf(poly: Polytope, spec: Spec, alpha: float, delta: float, eps: float, ef
     }, status
 
 
+RATE_GAIN_WEIGHT = 0.0  # weight of the gain size beside the rate slack in the rate search's objective
+RATE_TOLERANCE = 2e-3  # the rate search stops when a step gains less than this (relative, 1/s at least 1e-4)
+RATE_STEPS_MAX = 40
+
+
+def _tight(alpha: float) -> float:
+    """The rate the LMIs are solved at to certify ``alpha`` with a margin (as :func:`_regions` tightens)."""
+    return max(1.02 * alpha, alpha + 0.01)
+
+
+def _untight(a: float) -> float:
+    """The largest ``alpha`` with ``_tight(alpha) <= a`` (0 when ``a`` is below the smallest tightening)."""
+    return max(min(a / 1.02, a - 0.01), 0.0)
+
+
+def _rate_of(poly: Polytope, spec: Spec, X1, Y, slacks, delta: float) -> float:
+    """The largest rate ``a`` at which the decay-region LMI of every vertex holds with the margin ``delta`` at
+    the given point (numpy, independent of the solver): ``He(A_i X + B_i Y) + 2 a X <= -delta I``.
+
+    With ``E = I`` this is half the smallest generalized eigenvalue of the pencil ``(-He(A_i X + B_i Y) -
+    delta I, X)`` over the vertices (Boyd, El Ghaoui, Feron and Balakrishnan 1994, sec. 2.2.3); with a
+    descriptor polytope, whose block ``diag(X, 0)`` is singular, the same number is found by bisection on
+    the largest eigenvalue, which decreases with ``a``.  ``-inf`` when not even ``a = 0`` holds."""
+    E, A, B = _scaled(poly, spec)
+    n = 4
+    X1 = 0.5 * (X1 + X1.T)
+    delta = max(delta, 1e-9 * float(np.abs(X1).max()))  # well clear of the certificate's tolerance
+    if disk_supported(poly):
+        Linv = np.linalg.inv(np.linalg.cholesky(X1))
+        S = A @ X1 + B @ Y
+        M = -(S + np.swapaxes(S, 1, 2)) - delta * np.eye(n)
+        G = Linv @ M @ Linv.T
+        return float(0.5 * np.linalg.eigvalsh(0.5 * (G + np.swapaxes(G, 1, 2))).min())
+    X3, X4 = slacks[0]
+    Z = np.zeros((n, n))
+    Xbar = np.block([[X1, Z], [Z, Z]])
+    S = np.stack([np.block([[X3, X4], [A[i] @ X1 + B[i] @ Y - E[i] @ X3, -E[i] @ X4]]) for i in range(A.shape[0])])
+    base = S + np.swapaxes(S, 1, 2) + delta * np.eye(2 * n)
+
+    def top(a: float) -> float:
+        return float(np.linalg.eigvalsh(base + 2.0 * a * Xbar).max())
+
+    if top(0.0) > 0.0:
+        return -np.inf
+    lo, hi = 0.0, 1.0
+    while top(hi) <= 0.0 and hi < 1e6:
+        lo, hi = hi, 2.0 * hi
+    for _ in range(60):
+        mid = 0.5 * (lo + hi)
+        lo, hi = (mid, hi) if top(mid) <= 0.0 else (lo, mid)
+    return lo
+
+
+def _slack_solve(poly: Polytope, spec: Spec, a: float, delta: float):
+    """Minimise the rate slack at rate ``a``; returns ``(X1, Y, slacks, s, status)``, ``X1`` ``None`` on failure."""
+    prob, h = _problem(poly, spec, delta, rate_slack=True)
+    h["two_alpha"].value = 2.0 * a
+    solver, status = _solve(prob, options=SEARCH_OPTIONS)
+    if solver is None:
+        return None, None, None, np.nan, status
+    n = 4
+    X1v = h["X1"].value
+    Yv = h["Y"].value  # a variable, or the expression K_s X1 for a fixed gain
+    slack_vals = [(a_.value, b_.value) for a_, b_ in h["slacks"]]
+    slack_vals = [(np.zeros((n, n)) if x is None else x, np.zeros((n, n)) if y is None else y) for x, y in slack_vals]
+    return X1v, Yv, slack_vals, float(h["rate_slack"].value), f"{solver}: {status}"
+
+
+def _bound_binds(spec: Spec, X1) -> bool:
+    """The Lyapunov bound limits a rate-search point.  Without a torque ellipsoid the rate-slack problem
+    is homogeneous in ``(X, Y)``, so its point always scales up to the upper bound; what limits it then
+    is the condition number, i.e. both ``X >= I`` and ``X <= bound I`` active."""
+    if not _touches(X1, spec.lyapunov_bound):
+        return False
+    return spec.torque_limit is not None or float(np.linalg.eigvalsh(0.5 * (X1 + X1.T)).min()) <= 1.02
+
+
+def _raise_rate(
+    poly: Polytope, spec: Spec, a0: float, delta: float, say=None, cap: float | None = None, stop_when_bound=False
+):
+    """The largest rate certifiable with a common Lyapunov matrix, from a rate ``a0`` known to certify.
+
+    A generalized-eigenvalue problem: maximise ``a`` with ``He(A_i X + B_i Y) + 2 a X < 0`` at every
+    vertex (Boyd, El Ghaoui, Feron and Balakrishnan 1994, sec. 5.1.2).  Each solve minimises, at a trial
+    rate ``a``, the largest eigenvalue ``s(a)`` of the decay LMIs with every other constraint kept; that
+    problem is feasible at every rate, so no solve has to grind to a proof of infeasibility (with plain
+    bisection those solves ran to the time limit and took ten times as long).  ``s(a)`` increases with
+    ``a`` and its root is the answer.  The next trial rate is
+
+    - after the first solve, the rate the point certifies (a Dinkelbach step, Crouzeix and Ferland 1991);
+    - while every trial has ``s < 0``, the secant root of the last two ``(a, s)`` pairs;
+    - once a trial has ``s >= 0`` (an upper bracket), regula falsi with the Illinois modification between
+      the bracket ends (Dowell and Jarratt 1971).
+
+    Whatever the solver returns, only numpy decides what is certified: each point certifies exactly the
+    rate :func:`_rate_of` computes from it.  The search stops when the bracket, or the predicted gain,
+    is below :data:`RATE_TOLERANCE` relative (1e-4 1/s at least).
+
+    Returns ``(rate, (X1, Y, slacks) or None, solves, status)``: the rate is raw (the LMI holds at it with
+    the margin ``delta``), never below ``a0``, and at most ``cap``.  With ``stop_when_bound`` the search
+    returns as soon as the Lyapunov bound is what limits its point (:func:`_bound_binds`), so the caller can
+    widen the bound and go on from there instead of converging to an answer set by the bound."""
+    lo, best, solves, status = float(a0), None, 0, "not started"
+    hi = np.inf if cap is None else float(cap)
+    below: list[tuple[float, float]] = []  # (trial rate, s < 0), in order
+    gain = 0.0  # the last rise of the certified rate
+    a = lo
+    for _ in range(RATE_STEPS_MAX):
+        if say is not None:
+            say(f"LMI rate search at {a:.4g} 1/s on {poly.vertices} vertices")
+        X1, Y, slacks, s_val, status = _slack_solve(poly, spec, a, delta)
+        solves += 1
+        if X1 is None:  # no answer at this rate: treat it as the upper end (this only lowers the answer)
+            hi = min(hi, a)
+        else:
+            try:
+                certified = _rate_of(poly, spec, X1, Y, slacks, delta)
+            except np.linalg.LinAlgError:  # the returned Lyapunov matrix is not positive definite
+                certified = -np.inf
+            certified = min(certified, hi)
+            if certified > lo:
+                gain, lo, best = certified - lo, certified, (X1, Y, slacks)
+                if stop_when_bound and _bound_binds(spec, X1):
+                    break
+            if s_val < 0.0:
+                below.append((a, s_val))
+            else:
+                hi = min(hi, a)
+        tol = max(RATE_TOLERANCE * max(lo, 1e-12), 1e-4)
+        if hi - lo <= tol:
+            break
+        if np.isfinite(hi):  # bracketed: bisection (near the answer the solver's s is too inaccurate to trust)
+            a = 0.5 * (lo + hi)
+            continue
+        nxt = max(lo, lo + 2.0 * gain)  # the Dinkelbach step, or a doubling of the last rise
+        if len(below) >= 2:
+            (a1, s1), (a2, s2) = below[-2], below[-1]
+            if s2 > s1 and a2 != a1:
+                nxt = max(nxt, a2 - s2 * (a2 - a1) / (s2 - s1))  # the secant root of the last two trials
+        nxt = min(nxt, max(2.0 * lo, lo + 1.0))
+        if nxt - a <= tol:
+            break  # the next trial would gain less than the tolerance over this one
+        a = nxt
+    return lo, best, solves, status
+
+
+def _point_result(poly, spec, a, point, delta, status) -> dict:
+    """The result dict of a rate-search point, certified (numpy) at the raw rate ``a`` it was computed for."""
+    X1, Y, slacks = point
+    K = spec.input_scale * (Y @ np.linalg.inv(X1)) @ np.diag(1.0 / spec.state_scale)
+    cert = _check_common(poly, spec, a, X1, Y, slacks, delta)
+    return {"K": K, "solver": status.split(":")[0], "status": status, "certificate": cert, "value": float("nan")}
+
+
+def _maximize_decay(poly, spec, alpha, res, delta, say=None):
+    """Largest certified decay rate from ``alpha`` (certified by ``res``), common Lyapunov matrix.
+
+    The rate search (:func:`_raise_rate`) finds the largest rate; the gain returned is then the smallest
+    one (the synthesis's objective) at a rate just below it, solved once with the tightened regions as
+    every other synthesis answer.  When that solve does not conclude, the search's own point is returned,
+    certified at the rate it was found for.  Returns ``(rate, result, spec, solves)``: ``spec`` carries
+    the Lyapunov bound the answer was found with (widened when the bound limited the search)."""
+    a_star, point, solves, status = _tight(alpha), None, 0, ""
+    while True:
+        a, p, c, st = _raise_rate(poly, spec, a_star, delta, say, stop_when_bound=spec.lyapunov_bound < X_BOUND_MAX)
+        solves += c
+        if p is not None:
+            a_star, point, status = a, p, st
+        if p is None or spec.lyapunov_bound >= X_BOUND_MAX or not _bound_binds(spec, p[0]):
+            break
+        if say is not None:
+            say(f"the Lyapunov bound {spec.lyapunov_bound:.0e} limits the rate search; widening it to {X_BOUND_MAX:.0e}")
+        spec = replace(spec, lyapunov_bound=X_BOUND_MAX)
+    if point is None:
+        return alpha, res, spec, solves
+    top = _untight(a_star)
+    for shrink in (5e-3, 1e-2, 2e-2):
+        trial = top * (1.0 - shrink)
+        if trial <= alpha:
+            break
+        if say is not None:
+            say(f"LMI solve for the smallest gain at decay rate {trial:.4g} 1/s")
+        r, _st = _common(poly, spec, trial, delta, options=FINAL_OPTIONS)
+        solves += 1
+        if r is not None and r["certificate"].passed:
+            return trial, r, spec, solves
+    fallback = _point_result(poly, spec, a_star, point, delta, status)
+    if fallback["certificate"].passed and a_star > alpha:
+        return a_star, fallback, spec, solves
+    return alpha, res, spec, solves
+
+
 EPSILONS = (0.03, 0.1, 0.3, 1.0)
 
 
@@ -624,7 +846,10 @@ def _relax_bound(poly, spec, alpha, res, delta, steps, say=None):
                 f"{wider.lyapunov_bound:.0e}"
             )
         new_alpha, new = alpha, None
-        if spec.objective == "decay":
+        if spec.objective == "decay" and spec.lyapunov == "common":
+            new_alpha, new, _wider, c = _maximize_decay(poly, wider, alpha, None, delta, say)
+            solves += c
+        elif spec.objective == "decay":
             lo, hi = alpha, max(1.25 * alpha, alpha + 0.05)
             while hi < 64.0:
                 r, _s, c = _attempt(poly, wider, hi, delta, say, escalate=False)
@@ -747,7 +972,10 @@ def synthesize(
     if res is None:
         _infeasible(poly, spec, delta, bisection_steps, say)
     alpha = spec.decay_rate
-    if spec.objective == "decay":
+    if spec.objective == "decay" and spec.lyapunov == "common":
+        alpha, res, spec, c = _maximize_decay(poly, spec, alpha, res, delta, say)
+        solves += c
+    elif spec.objective == "decay":
         lo, hi = alpha, max(2.0 * alpha, 1.0)
         while True:  # grow the bracket (up to 64 1/s: faster is beyond any drive)
             r, _s, c = _attempt(poly, spec, hi, delta, say, escalate=False)
@@ -797,7 +1025,6 @@ def certify_gain(
     *,
     input_scale: float,
     upper: float,
-    steps: int = 8,
     delta: float = 1e-6,
     lyapunov_bound: float = X_BOUND,
     progress: Callable[[str], None] | None = None,
@@ -809,8 +1036,10 @@ def certify_gain(
     and Balakrishnan 1994, ch. 5), so for a gain that came from the synthesis
     the answer agrees with its synthesis certificate.  ``upper`` bounds the
     search (the sampled worst-case decay rate: no certificate can exceed it).
-    The bound on the Lyapunov matrix is widened (to
-    :data:`X_BOUND_MAX`) while it is what stops the certificate.
+    The rate is found by the generalized-eigenvalue search of :func:`_raise_rate`
+    (``resolution`` is its stopping step, not a proven distance to the optimum);
+    the bound on the Lyapunov matrix is widened (to :data:`X_BOUND_MAX`) while it
+    is what stops the certificate.
     """
     spec = Spec(
         decay_rate=0.0,
@@ -819,7 +1048,7 @@ def certify_gain(
         fixed_gain=np.asarray(K, dtype=float),
         lyapunov_bound=float(lyapunov_bound),
     )
-    # one solve per rate at ordinary effort: a rate that is not certified only lowers the answer (conservative)
+    # stability first (one solve at ordinary effort per bound): a rate not certified only lowers the answer
     solves = 0
     while True:
         res, status, c = _attempt_once(poly, spec, 0.0, delta, 0)
@@ -830,41 +1059,25 @@ def certify_gain(
     if res is None:
         return GainCertificate(None, 0.0, None, status, solves, spec.lyapunov_bound)
     top = max(float(upper), 0.0)
-    lo, r, c = _bisect_once(poly, spec, 0.0, top, delta, steps, progress)
-    best = r or res
+    lo, best, c = _certified_rate(poly, spec, _tight(0.0), res, delta, top, progress)
     solves += c
-    spec, lo, best, c = _relax_bound_fixed(poly, spec, lo, best, delta, top, steps, progress)
-    solves += c
-    return GainCertificate(lo, top / 2**steps, best["certificate"], best["status"], solves, spec.lyapunov_bound)
-
-
-def _bisect_once(poly, spec, lo, hi, delta, steps, say=None):
-    """Bisection of the decay rate in ``[lo, hi]`` with one solve per rate at ordinary effort (a rate that is
-    not certified only lowers the answer, which stays certified). Returns ``(rate, result or None, solves)``."""
-    best, solves = None, 0
-    for _ in range(steps):
-        mid = 0.5 * (lo + hi)
-        if say is not None:
-            say(f"certifying the gain at decay rate {mid:.3g} 1/s")
-        r, _st, c = _attempt_once(poly, spec, mid, delta, 0)
-        solves += c
-        if r is not None:
-            lo, best = mid, r
-        else:
-            hi = mid
-    return lo, best, solves
-
-
-def _relax_bound_fixed(poly, spec, lo, best, delta, hi, steps, say=None):
-    """:func:`_relax_bound` for a fixed gain: the search stays below the sampled worst case ``hi``."""
-    solves = 0
-    while best["certificate"].bound_active and spec.lyapunov_bound < X_BOUND_MAX and hi - lo > 1e-9:
+    while best["certificate"].bound_active and spec.lyapunov_bound < X_BOUND_MAX and top - lo > 1e-9:
         wider = replace(spec, lyapunov_bound=X_BOUND_MAX)
-        if say is not None:
-            say(f"the Lyapunov bound {spec.lyapunov_bound:.0e} is active; relaxing it to {wider.lyapunov_bound:.0e}")
-        a, new, c = _bisect_once(poly, wider, lo, hi, delta, steps, say)
+        if progress is not None:
+            progress(f"the Lyapunov bound {spec.lyapunov_bound:.0e} is active; relaxing it to {wider.lyapunov_bound:.0e}")
+        a, new, c = _certified_rate(poly, wider, lo, None, delta, top, progress)
         solves += c
-        if new is None or _condition(new["certificate"].lyapunov) > X_CONDITION_MAX:
+        if new is None or a <= lo or _condition(new["certificate"].lyapunov) > X_CONDITION_MAX:
             break
         spec, lo, best = wider, a, new
-    return spec, lo, best, solves
+    resolution = max(RATE_TOLERANCE * lo, 1e-4)
+    return GainCertificate(min(lo, top), resolution, best["certificate"], best["status"], solves, spec.lyapunov_bound)
+
+
+def _certified_rate(poly, spec, a0, res, delta, top, say=None):
+    """The rate search for a fixed gain from the raw rate ``a0`` (certified by ``res``, or ``None``):
+    ``(rate, result, solves)``; the result's certificate is the numpy re-check at the returned rate."""
+    a, point, solves, status = _raise_rate(poly, spec, a0, delta, say, cap=top)
+    if point is None:
+        return a0, res, solves
+    return a, _point_result(poly, spec, a, point, delta, status), solves
