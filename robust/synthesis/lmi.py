@@ -683,6 +683,7 @@ def _raise_rate(
     hi = np.inf if cap is None else float(cap)
     below: list[tuple[float, float]] = []  # (trial rate, s < 0), in order
     gain = 0.0  # the last rise of the certified rate
+    use_secant = False
     a = lo
     for _ in range(RATE_STEPS_MAX):
         if say is not None:
@@ -708,14 +709,22 @@ def _raise_rate(
         tol = max(RATE_TOLERANCE * max(lo, 1e-12), 1e-4)
         if hi - lo <= tol:
             break
-        if np.isfinite(hi):  # bracketed: bisection (near the answer the solver's s is too inaccurate to trust)
-            a = 0.5 * (lo + hi)
-            continue
-        nxt = max(lo, lo + 2.0 * gain)  # the Dinkelbach step, or a doubling of the last rise
+        secant = None
         if len(below) >= 2:
             (a1, s1), (a2, s2) = below[-2], below[-1]
             if s2 > s1 and a2 != a1:
-                nxt = max(nxt, a2 - s2 * (a2 - a1) / (s2 - s1))  # the secant root of the last two trials
+                secant = a2 - s2 * (a2 - a1) / (s2 - s1)  # the secant root of the last two trials below
+        if np.isfinite(hi):
+            # bracketed: the secant root when it falls inside, alternating with bisection so that the
+            # bracket at least halves every second solve whatever the solver's s is worth near the answer
+            mid = 0.5 * (lo + hi)
+            use_secant = not use_secant
+            inside = secant is not None and lo + 0.5 * tol < secant < hi - 0.5 * tol
+            a = secant if (use_secant and inside) else mid
+            continue
+        nxt = max(lo, lo + 2.0 * gain)  # the Dinkelbach step, or a doubling of the last rise
+        if secant is not None:
+            nxt = max(nxt, secant)
         nxt = min(nxt, max(2.0 * lo, lo + 1.0))
         if nxt - a <= tol:
             break  # the next trial would gain less than the tolerance over this one
@@ -740,6 +749,10 @@ def _maximize_decay(poly, spec, alpha, res, delta, say=None):
     certified at the rate it was found for.  Returns ``(rate, result, spec, solves)``: ``spec`` carries
     the Lyapunov bound the answer was found with (widened when the bound limited the search)."""
     a_star, point, solves, status = _tight(alpha), None, 0, ""
+    if spec.torque_limit is None and spec.lyapunov_bound < X_BOUND_MAX:
+        # without a torque ellipsoid the rate-slack problem is homogeneous: its point scales up to the bound
+        # and only the condition number X_BOUND_MAX / 1 limits it, so the search starts with the widest bound
+        spec = replace(spec, lyapunov_bound=X_BOUND_MAX)
     while True:
         a, p, c, st = _raise_rate(poly, spec, a_star, delta, say, stop_when_bound=spec.lyapunov_bound < X_BOUND_MAX)
         solves += c
@@ -748,7 +761,9 @@ def _maximize_decay(poly, spec, alpha, res, delta, say=None):
         if p is None or spec.lyapunov_bound >= X_BOUND_MAX or not _bound_binds(spec, p[0]):
             break
         if say is not None:
-            say(f"the Lyapunov bound {spec.lyapunov_bound:.0e} limits the rate search; widening it to {X_BOUND_MAX:.0e}")
+            say(
+                f"the Lyapunov bound {spec.lyapunov_bound:.0e} limits the rate search; widening it to {X_BOUND_MAX:.0e}"
+            )
         spec = replace(spec, lyapunov_bound=X_BOUND_MAX)
     if point is None:
         return alpha, res, spec, solves
@@ -1064,7 +1079,9 @@ def certify_gain(
     while best["certificate"].bound_active and spec.lyapunov_bound < X_BOUND_MAX and top - lo > 1e-9:
         wider = replace(spec, lyapunov_bound=X_BOUND_MAX)
         if progress is not None:
-            progress(f"the Lyapunov bound {spec.lyapunov_bound:.0e} is active; relaxing it to {wider.lyapunov_bound:.0e}")
+            progress(
+                f"the Lyapunov bound {spec.lyapunov_bound:.0e} is active; relaxing it to {wider.lyapunov_bound:.0e}"
+            )
         a, new, c = _certified_rate(poly, wider, lo, None, delta, top, progress)
         solves += c
         if new is None or a <= lo or _condition(new["certificate"].lyapunov) > X_CONDITION_MAX:
