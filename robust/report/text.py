@@ -443,7 +443,9 @@ def assessment_text(case, a, *, view: str = "linear") -> str:
             elif c.decay_rate is None:
                 rows.append([v.gain, "stability not certified", value_text(sampled)])
             else:
-                rows.append([v.gain, f"{fmt(c.decay_rate)} (last search step {fmt(c.resolution, 2)})", value_text(sampled)])
+                rows.append(
+                    [v.gain, f"{fmt(c.decay_rate)} (last search step {fmt(c.resolution, 2)})", value_text(sampled)]
+                )
         out.append(table(["gain set", "certified [1/s]", "sampled worst [1/s]"], rows))
     out += ["", "=" * 78]
     for v in a.verdicts:

@@ -299,16 +299,20 @@ def _common(poly: Polytope, spec: Spec, alpha: float, delta: float, effort: int 
     solver, status = _solve(prob, effort, options)
     if solver is None:
         return None, status
-    n = 4
     X1v, Yv = h["X1"].value, h["Y"].value
-    slack_vals = [(a.value, b.value) for a, b in h["slacks"]]
-    slack_vals = [(np.zeros((n, n)) if a is None else a, np.zeros((n, n)) if b is None else b) for a, b in slack_vals]
+    slack_vals = _slack_values(h)
     K_scaled = Yv @ np.linalg.inv(X1v)
     K = h["spec"].input_scale * K_scaled @ np.diag(1.0 / h["spec"].state_scale)
     gamma_v = float(h["gamma"].value) if h["gamma"] is not None else None
     cert = _check_common(poly, h["spec"], alpha, X1v, Yv, slack_vals, delta, gamma_v)
     value = float(prob.value)
     return {"K": K, "solver": solver, "status": status, "certificate": cert, "value": value}, status
+
+
+def _slack_values(h) -> list:
+    """The descriptor slack matrices ``(X3, X4)`` of each region at the solution (zeros where unused)."""
+    z = np.zeros((4, 4))
+    return [(z if a.value is None else a.value, z if b.value is None else b.value) for a, b in h["slacks"]]
 
 
 def _build_common(poly: Polytope, spec: Spec, delta: float, rate_slack: bool = False):
@@ -389,8 +393,10 @@ def _build_common(poly: Polytope, spec: Spec, delta: float, rate_slack: bool = F
     else:
         cons.append(X1 >> np.eye(n) * (delta if extra else 1.0))
     if rate_slack:
-        # the slack alone (RATE_GAIN_WEIGHT is 0): the smallest gain is found afterwards at the rate found
-        obj = s_rate + RATE_GAIN_WEIGHT * kappa
+        # the slack alone: a gain-size term skewed it (measured on the transporter: with 1e-6 x kappa the slack
+        # at 2 1/s came out at -610, -58 or -789 depending on solver settings, alone it is -377 whatever the
+        # settings); the smallest gain is found afterwards at the rate found
+        obj = s_rate
     prob = cp.Problem(cp.Minimize(obj), cons)
     handles = {
         "two_alpha": two_alpha,
@@ -577,10 +583,6 @@ def _pdlf(poly: Polytope, spec: Spec, alpha: float, delta: float, eps: float, ef
     }, status
 
 
-# weight of the gain size beside the rate slack in the rate search's objective: 0, because any weight large
-# enough to matter skewed the slack (measured on the transporter: with 1e-6 the slack at 2 1/s came out at
-# -610, -58 or -789 depending on solver settings, with 0 it is -377 whatever the settings)
-RATE_GAIN_WEIGHT = 0.0
 RATE_TOLERANCE = 2e-3  # the rate search stops when a step gains less than this (relative, 1/s at least 1e-4)
 RATE_STEPS_MAX = 40
 
@@ -640,12 +642,8 @@ def _slack_solve(poly: Polytope, spec: Spec, a: float, delta: float):
     solver, status = _solve(prob, options=SEARCH_OPTIONS)
     if solver is None:
         return None, None, None, np.nan, status
-    n = 4
-    X1v = h["X1"].value
     Yv = h["Y"].value  # a variable, or the expression K_s X1 for a fixed gain
-    slack_vals = [(a_.value, b_.value) for a_, b_ in h["slacks"]]
-    slack_vals = [(np.zeros((n, n)) if x is None else x, np.zeros((n, n)) if y is None else y) for x, y in slack_vals]
-    return X1v, Yv, slack_vals, float(h["rate_slack"].value), f"{solver}: {status}"
+    return h["X1"].value, Yv, _slack_values(h), float(h["rate_slack"].value), f"{solver}: {status}"
 
 
 def _bound_binds(spec: Spec, X1) -> bool:
@@ -669,10 +667,11 @@ def _raise_rate(
     bisection those solves ran to the time limit and took ten times as long).  ``s(a)`` increases with
     ``a`` and its root is the answer.  The next trial rate is
 
-    - after the first solve, the rate the point certifies (a Dinkelbach step, Crouzeix and Ferland 1991);
-    - while every trial has ``s < 0``, the secant root of the last two ``(a, s)`` pairs;
-    - once a trial has ``s >= 0`` (an upper bracket), regula falsi with the Illinois modification between
-      the bracket ends (Dowell and Jarratt 1971).
+    - while no trial has ``s >= 0``: the largest of the rate the last point certifies (a Dinkelbach step,
+      Crouzeix and Ferland 1991), the secant root of the last two ``(a, s)`` pairs with ``s < 0``, and
+      twice the last rise of the certified rate (at most ``max(2 lo, lo + 1)``);
+    - once a trial has ``s >= 0`` (an upper bracket): bisection, alternating with the secant root when it
+      falls inside the bracket, so the bracket at least halves every second solve.
 
     Whatever the solver returns, only numpy decides what is certified: each point certifies exactly the
     rate :func:`_rate_of` computes from it.  The search stops when the bracket, or the predicted gain,
@@ -740,7 +739,9 @@ def _point_result(poly, spec, a, point, delta, status) -> dict:
     X1, Y, slacks = point
     K = spec.input_scale * (Y @ np.linalg.inv(X1)) @ np.diag(1.0 / spec.state_scale)
     cert = _check_common(poly, spec, a, X1, Y, slacks, delta)
-    return {"K": K, "solver": status.split(":")[0], "status": status, "certificate": cert, "value": float("nan")}
+    # the gain-size objective of the point: the smallest kappa with [[X1, Y^T], [Y, kappa I]] >= 0
+    kappa = float(np.linalg.eigvalsh(Y @ np.linalg.solve(X1, Y.T)).max())
+    return {"K": K, "solver": status.split(":")[0], "status": status, "certificate": cert, "value": kappa}
 
 
 def _maximize_decay(poly, spec, alpha, res, delta, say=None):
