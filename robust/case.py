@@ -94,6 +94,7 @@ class Case:
     default_manoeuvres: bool = False
     tuning: dict = field(default_factory=dict)
     front: dict = field(default_factory=dict)
+    schedule: dict = field(default_factory=dict)  # [schedule]: {"name", "schedule": gains.Schedule}
 
     @property
     def vehicle(self) -> Vehicle:
@@ -116,6 +117,7 @@ TOP_KEYS = (
     "synthesis",
     "tuning",
     "front",
+    "schedule",
 )
 SYNTHESIS_KEYS = {
     "name": ("text", None),
@@ -397,6 +399,7 @@ def parse_case(text: str, *, source: str = "<text>") -> Case:
         default_manoeuvres=defaults,
         tuning=_tuning(doc),
         front=_front(doc),
+        schedule=_schedule(doc, vehicle, ranges),
     )
 
 
@@ -428,6 +431,88 @@ def _tuning(doc: dict) -> dict:
         raise CaseError(f"'tuning.starts': unknown gain set {unknown[0]!r}; the case defines: {', '.join(names)}")
     out["starts"] = list(starts)
     return out
+
+
+SCHEDULE_KEYS = ("name", "parameter", "nominal", "measurement_error")
+SCHEDULE_CONSTRAINTS = ("torque_limit_n_m", "speed_step_m_s", "yaw_rate_step_rad_s", "initial_pitch_deg")
+FIXED_NAME = "best_fixed"  # the schedule study's fixed gain (robust.scheduling)
+
+
+def _schedule(doc: dict, vehicle: Vehicle, ranges) -> dict:
+    """``[schedule]``: a gain scheduled on a measured parameter (``parameter``, ``measurement_error`` in the
+    parameter's unit, optional ``nominal`` and ``name``); the dossier sets it beside the best fixed gain."""
+    if "schedule" not in doc:
+        return {}
+    from robust.gains import Schedule
+    from robust.outputs import OutputError, check_name
+    from robust.synthesis.polytope import SCHEDULABLE
+    from robust.vehicle import PARAMETERS
+
+    st = _table(doc, "schedule", "", required=False)
+    _check_keys(st, [*SCHEDULE_KEYS, *SCHEDULE_CONSTRAINTS], "schedule")
+    name = _text(st, "name", "schedule", default="scheduled")
+    try:
+        check_name(name, "schedule.name")
+    except OutputError as exc:
+        raise CaseError(str(exc)) from None
+    parameter = _text(st, "parameter", "schedule")
+    if parameter not in SCHEDULABLE:
+        raise CaseError(
+            f"'schedule.parameter': expected one of {', '.join(SCHEDULABLE)} (the measured parameter must be a "
+            f"coordinate of the rigorous polytope), got {parameter!r}"
+        )
+    unit = PARAMETERS[parameter].unit
+    found = [r for r in ranges if r.name == parameter]
+    if not found:
+        raise CaseError(
+            f"'schedule.parameter': {parameter!r} has no range under [ranges]; a gain scheduled on a parameter "
+            "that does not vary buys nothing"
+        )
+    rng = found[0]
+    error = _number(st, "measurement_error", "schedule", unit)
+    if error < 0:
+        raise CaseError(f"'schedule.measurement_error': expected >= 0 [{unit}] (a +- bound), got {error:g}")
+    if error > rng.high - rng.low:
+        raise CaseError(
+            f"'schedule.measurement_error': expected at most the range's width {rng.high - rng.low:g} [{unit}] "
+            f"(a larger error measures nothing), got {error:g}"
+        )
+    from robust.vehicle import get_parameter
+
+    nominal = _number(st, "nominal", "schedule", unit, default=get_parameter(vehicle, parameter))
+    if not rng.low <= nominal <= rng.high:
+        raise CaseError(
+            f"'schedule.nominal': expected a value inside the range [{rng.low:g}, {rng.high:g}] [{unit}], got "
+            f"{nominal:g}"
+        )
+    names = set(_table(doc, "gains", "", required=False))
+    names |= {doc.get("synthesis", {}).get("name", "robust_lmi"), doc.get("tuning", {}).get("name", "tuned")}
+    if name in names or name == FIXED_NAME:
+        raise CaseError(f"'schedule.name': {name!r} is already the name of a gain set; choose another")
+    if FIXED_NAME in names:
+        raise CaseError(
+            f"'gains.{FIXED_NAME}': with [schedule] the name {FIXED_NAME!r} is taken by the schedule study's best "
+            "fixed gain; rename the gain set"
+        )
+    constraints = {}
+    for key in SCHEDULE_CONSTRAINTS:  # the torque ellipsoid of both gains, as in [synthesis]
+        if key in st:
+            unit, (lo, hi) = SYNTHESIS_KEYS[key]
+            v = _number(st, key, "schedule", unit)
+            if v <= lo or (hi is not None and v > hi):
+                want = f"> {lo:g}" if hi is None else f"in ({lo:g}, {hi:g}]"
+                raise CaseError(f"'schedule.{key}': expected {want} [{unit}], got {v:g}")
+            constraints[key] = v
+    if "torque_limit_n_m" in constraints and len(constraints) == 1:
+        raise CaseError(
+            "'schedule.torque_limit_n_m': say which motions it must cover with speed_step_m_s, "
+            "yaw_rate_step_rad_s and/or initial_pitch_deg"
+        )
+    if constraints and "torque_limit_n_m" not in constraints:
+        raise CaseError(
+            f"'schedule.{next(iter(constraints))}': a motion without 'schedule.torque_limit_n_m' bounds nothing"
+        )
+    return {"name": name, "schedule": Schedule(parameter, nominal, error), "constraints": constraints}
 
 
 FRONT_KEYS = ("sweep", "objective", "factors", "evaluations")

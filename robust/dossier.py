@@ -61,6 +61,7 @@ class DossierData:
     period_sweep: dict[str, list[dict]] | None = None  # per gain set, one row per sample period tried
     tolerances: dict[str, list[dict]] | None = None  # per gain set: which tolerance drives which requirement
     campaigns: tuple[dict, ...] = ()  # fall-probability campaigns given with --campaign (campaign_record)
+    schedule: object | None = None  # robust.scheduling.ScheduleComparison, when the case has [schedule]
 
 
 LOOP_SHAPE_MODELS = 400  # models (corners first) whose loop shapes are drawn as bands
@@ -169,6 +170,12 @@ def run_dossier(
             evaluations=fr["evaluations"],
             progress=progress,
         )
+    schedule = None
+    if case.schedule:
+        from robust.scheduling import run_schedule_study
+
+        say("what measuring the payload buys")
+        schedule = run_schedule_study(case, progress=progress)
     if not gains:
         raise ValueError("the dossier needs at least one gain set: add [gains.NAME], [synthesis] or a gain file")
     if tuning is not None and tuning.assessment is not None and len(gains) > 1:
@@ -223,6 +230,18 @@ def run_dossier(
             inputs.append(Input(f"gains/{stem}.toml", str(given[g.name]), Path(given[g.name]).read_bytes()))
         else:
             inputs.append(Input(f"gains/{stem}.toml", "written by this dossier", gain_file_text(g).encode("utf-8")))
+    if schedule is not None and schedule.scheduled is not None:
+        from robust.gains import scheduled_gain_file_text
+
+        extra = [schedule.scheduled.name] + ([schedule.fixed.name] if schedule.fixed is not None else [])
+        stems = file_stems([*(g.name for g in gains), *extra])
+        text = scheduled_gain_file_text(schedule.scheduled)
+        where = "written by this dossier (scheduled gain)"
+        inputs.append(Input(f"gains/{stems[schedule.scheduled.name]}.toml", where, text.encode("utf-8")))
+        if schedule.fixed is not None:
+            text = gain_file_text(schedule.fixed)
+            where = "written by this dossier (best fixed gain of the schedule study)"
+            inputs.append(Input(f"gains/{stems[schedule.fixed.name]}.toml", where, text.encode("utf-8")))
     return DossierData(
         case=case,
         inputs=tuple(inputs),
@@ -235,6 +254,7 @@ def run_dossier(
         tolerances=tolerances,
         campaigns=tuple(campaigns or ()),
         front=front,
+        schedule=schedule,
         stamp=stamp(case),
         facts=facts,
         check=check,

@@ -146,3 +146,94 @@ def read_gain_file(path: str | Path) -> GainSet:
         origin=str(g.get("origin", "file")),
         provenance=dict(g.get("provenance", {})) | {"file": str(path)},
     )
+
+
+@dataclass(frozen=True)
+class Schedule:
+    """A measured parameter the gain is scheduled on, with the measurement's error bound.
+
+    Attributes
+    ----------
+    parameter
+        The measured parameter's name (``"payload.mass_kg"``). [-]
+    nominal
+        The value at which the scheduled gain equals its base gain ``K0``. [unit of the parameter]
+    error
+        The measured value is within ``+-error`` of the true one. [unit of the parameter]
+    """
+
+    parameter: str
+    nominal: float
+    error: float
+
+    def __post_init__(self) -> None:
+        if not (math.isfinite(self.nominal) and math.isfinite(self.error) and self.error >= 0):
+            raise ValueError(
+                f"schedule on {self.parameter!r}: expected a finite nominal and an error >= 0, "
+                f"got {self.nominal!r} and {self.error!r}"
+            )
+
+
+@dataclass(frozen=True)
+class ScheduledGain:
+    """A gain scheduled on one measured parameter: ``K(p) = K0 + (p_measured - nominal) K1``.
+
+    The control law is ``u = -K(p) (x - x_ref)``; ``K1`` is per unit of the
+    parameter (``N m s/m per kg`` and so on for the payload mass).
+    """
+
+    name: str
+    K0: np.ndarray
+    K1: np.ndarray
+    schedule: Schedule
+    origin: str
+    provenance: dict[str, Any] = field(default_factory=dict)
+
+    def __post_init__(self) -> None:
+        for key in ("K0", "K1"):
+            K = np.asarray(getattr(self, key), dtype=float)
+            if K.shape != (2, 4) or not np.all(np.isfinite(K)):
+                raise ValueError(f"scheduled gain {self.name!r}: {key} must be a finite 2 x 4 matrix, got {K!r}")
+            object.__setattr__(self, key, K)
+
+    def at(self, measured: np.ndarray) -> np.ndarray:
+        """The gains ``(n, 2, 4)`` at measured values ``(n,)`` of the scheduling parameter."""
+        d = np.asarray(measured, dtype=float) - self.schedule.nominal
+        return self.K0[None] + d[:, None, None] * self.K1[None]
+
+    def fixed_part(self, name: str | None = None) -> GainSet:
+        """The base gain ``K0`` alone, as a fixed gain set (what the gain is at the nominal measurement)."""
+        return GainSet(name or self.name, self.K0, self.origin, dict(self.provenance))
+
+
+def scheduled_gain_file_text(gain: ScheduledGain) -> str:
+    """TOML text of a scheduled gain: ``K0`` (``matrix``), ``K1`` (``slope``) and the schedule.
+
+    Its table is ``[scheduled_gain]``, not ``[gain]``: a scheduled gain is not a fixed gain set, and
+    :func:`read_gain_file` refuses it rather than reading ``K0`` alone."""
+    s = gain.schedule
+    lines = [
+        "# Scheduled gain: u = -(K0 + (p_measured - nominal) K1) (x - x_ref);",
+        "# x = (speed, yaw_rate, pitch, pitch_rate) [SI]; u = (torque_left, torque_right) [N m];",
+        "# K1 per unit of the measured parameter.",
+        "[scheduled_gain]",
+        f"name = {_toml_value(gain.name)}",
+        f"origin = {_toml_value(gain.origin)}",
+        f"states = {_toml_value(list(REDUCED_STATES))}",
+        f"inputs = {_toml_value(list(INPUTS))}",
+        "matrix = [",
+        *(f"  {_toml_value(row)}," for row in gain.K0.tolist()),
+        "]",
+        "slope = [",
+        *(f"  {_toml_value(row)}," for row in gain.K1.tolist()),
+        "]",
+        "",
+        "[scheduled_gain.schedule]",
+        f"parameter = {_toml_value(s.parameter)}",
+        f"nominal = {_toml_value(s.nominal)}",
+        f"measurement_error = {_toml_value(s.error)}",
+        "",
+        "[scheduled_gain.provenance]",
+    ]
+    lines += [f"{k} = {_toml_value(v)}" for k, v in sorted(gain.provenance.items()) if not isinstance(v, dict)]
+    return "\n".join(lines) + "\n"

@@ -147,7 +147,7 @@ class LoopMargins:
 def loop_polynomials(A: np.ndarray, B: np.ndarray, K: np.ndarray, j: int) -> dict[str, np.ndarray]:
     """``D_j`` and ``N_j`` in powers of ``s`` (increasing, ``(n, 5)``) for the loop broken at input ``j``."""
     o = 1 - j
-    F = A - B[:, :, o : o + 1] @ K[o : o + 1, :]
+    F = A - B[:, :, o : o + 1] @ K[..., o : o + 1, :]  # K (2, 4) or one per model (n, 2, 4)
     Acl = A - B @ K
     d = charpoly_4x4(F)
     c = charpoly_4x4(Acl)
@@ -184,7 +184,7 @@ def loop_margins(A: np.ndarray, B: np.ndarray, K: np.ndarray) -> LoopMargins:
     A, B
         Reduced models, shapes ``(n, 4, 4)`` and ``(n, 4, 2)``.
     K
-        Gain, shape ``(2, 4)``; control law ``u = -K x``.
+        Gain, shape ``(2, 4)`` or one per model ``(n, 2, 4)``; control law ``u = -K x``.
     """
     n = A.shape[0]
     stable = eigenvalues_4x4(A - B @ K).real.max(axis=-1) < 0
@@ -314,7 +314,8 @@ def multiloop_disk_margin(
     lam, V = np.linalg.eig(Acl)
     stable = lam.real.max(axis=1) < 0
     cond = np.linalg.cond(V)
-    left = np.einsum("ij,njk->nik", K.astype(complex), V)
+    Kn = np.broadcast_to(K, (n, 2, 4))  # one gain, or one per model (a scheduled gain)
+    left = np.einsum("nij,njk->nik", Kn.astype(complex), V)
     right = np.linalg.solve(V, B.astype(complex))
     mag = np.abs(lam)
     lo = np.maximum(mag.min(axis=1), 1e-3) * 1e-2
@@ -346,7 +347,7 @@ def multiloop_disk_margin(
         # nearly defective closed loop: the modal form is unreliable; solve directly
         bad = np.flatnonzero(stable & (cond > 1e10))
         for i in bad:  # rare; a handful of samples at most
-            alpha[i] = _direct_mimo(Acl[i], B[i], K, w[i])
+            alpha[i] = _direct_mimo(Acl[i], B[i], Kn[i], w[i])
     out = {"disk_margin": alpha, "peak_rad_s": wpk}
     out.update(disk_ranges(alpha))
     return out

@@ -153,6 +153,9 @@ def evaluate(
 ) -> dict[str, np.ndarray]:
     """Metric values at parameter points ``(n, k)`` for gain ``K``; each ``(n,)``.
 
+    ``K`` is one gain ``(2, 4)`` or one per point ``(n, 2, 4)`` (a scheduled gain at each model's
+    measured value).
+
     ``names`` limits the metrics computed (default: all).  Work proceeds in
     chunks of ``chunk`` points (2,000 keeps the multi-loop frequency grid near 60 MiB and is the
     fastest measured); ``progress(done, total)`` is called after each.
@@ -164,8 +167,9 @@ def evaluate(
     for start in range(0, n, chunk):
         stop = min(n, start + chunk)
         model = reduced_model(box.plant(points[start:stop]))
+        Kc = K[start:stop] if np.ndim(K) == 3 else K
         for g in groups:
-            vals = GROUPS[g](model.A, model.B, K)
+            vals = GROUPS[g](model.A, model.B, Kc)
             for name, v in vals.items():
                 if name in out:
                     out[name][start:stop] = v

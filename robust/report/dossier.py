@@ -24,7 +24,7 @@ from robust.outputs import FolderTarget, file_stems, staged_folder
 from robust.report import figures as F
 from robust.report.jsonout import dumps
 from robust.report.text import fmt as _fmt_text
-from robust.report.text import plain_value, time_verdict_row
+from robust.report.text import METRIC_LABELS, plain_value, time_verdict_row
 from robust.synthesis.lmi import explain_status
 from robust.vehicle import PARAMETERS, get_parameter, plant_batch
 
@@ -487,6 +487,8 @@ def _blocks(d, today: str) -> tuple[list, list[Figure]]:
         )
     if getattr(d, "front", None) is not None:
         B += front_blocks(d.front)
+    if getattr(d, "schedule", None) is not None:
+        B += schedule_blocks(d)
     if getattr(d, "tolerances", None):
         B += tolerance_blocks(d)
     if getattr(d, "campaigns", ()):
@@ -981,6 +983,131 @@ def front_blocks(fr) -> list:
     return B
 
 
+def schedule_rows(sc, req: dict) -> list[dict]:
+    """The comparison of the schedule study as records: one per quantity, with the requirement's bound,
+    each gain's worst value and whether it meets the bound (values in display units, ``unit`` says which)."""
+    from robust.case import FIXED_NAME
+
+    names = [FIXED_NAME, sc.scheduled.name if sc.scheduled is not None else None]
+    rows = [
+        {
+            "quantity": "certified decay rate (LMI, every model of the box)",
+            "unit": "1/s",
+            "requirement": "min_decay_rate_per_s",
+            "bound": req.get("min_decay_rate_per_s"),
+            "kind": "min",
+            "values": [sc.certified.get(n) for n in names],
+        }
+    ]
+    for metric, m in METRICS.items():
+        if not all(n in sc.linear for n in names if n is not None):
+            break
+        rows.append(
+            {
+                "quantity": f"{METRIC_LABELS.get(metric, m.text)} (worst sampled)",
+                "unit": m.unit,
+                "requirement": m.requirement,
+                "bound": req.get(m.requirement),
+                "kind": m.kind,
+                "values": [sc.linear.get(n, {}).get(metric) for n in names],
+            }
+        )
+    for key, text, unit, kind, rkey, scale in (
+        ("peak_torque_n_m", "peak wheel torque over the manoeuvres", "N m", "max", "max_wheel_torque_n_m", 1.0),
+        ("peak_pitch_rad", "peak pitch over the manoeuvres", "deg", "max", "max_pitch_deg", 180.0 / np.pi),
+        ("falls", "runs that fell", "-", "max", None, 1.0),
+    ):
+        vals = [None if n not in sc.time else sc.time[n][key] * scale for n in names]
+        rows.append(
+            {
+                "quantity": text,
+                "unit": unit,
+                "requirement": rkey,
+                "bound": 0.0 if key == "falls" else req.get(rkey),
+                "kind": kind,
+                "values": vals,
+            }
+        )
+    for r in rows:
+        b = r["bound"]
+        r["meets"] = [
+            None if v is None or b is None else bool(v >= b if r["kind"] == "min" else v <= b) for v in r["values"]
+        ]
+    return rows
+
+
+def schedule_blocks(d) -> list:
+    """The section "What measuring the payload buys": the best fixed gain beside the scheduled gain."""
+    from robust.case import FIXED_NAME
+
+    sc = d.schedule
+    s = sc.schedule
+    unit = PARAMETERS[s.parameter].unit
+    label = PARAMETERS[s.parameter].text
+    B = [_h(2, f"What measuring the {label} buys")]
+    imposed = ", ".join(sc.imposed) if sc.imposed else "no other constraint"
+    B.append(
+        _p(
+            f"Two gains from the same LMIs on the rigorous polytope (route moment_box, common Lyapunov matrix, "
+            f"largest certified decay rate; also imposed: {imposed}): the best fixed gain ({FIXED_NAME}, "
+            f"{sc.vertices.get(FIXED_NAME, 0)} vertices) and a gain scheduled on the measured {label}, "
+            f"K = K0 + (measured - {s.nominal:g} {unit}) K1, with the measurement within +-{s.error:g} {unit} of "
+            f"the true value ({sc.scheduled.name if sc.scheduled is not None else 'scheduled'}, "
+            f"{sc.vertices.get(case_name(sc), 0)} vertices: the polytope also spans the measured value and its "
+            "product with the torque-constant ratio, so the certificate covers every model at every measurement "
+            "error within the bound)."
+        )
+    )
+    if sc.not_imposed:
+        B.append(_p("Not imposed by the LMIs: " + "; ".join(f"{k}: {v}" for k, v in sc.not_imposed.items()) + "."))
+    for name, why in sc.errors.items():
+        B.append(_p(f"{name}: NOT SYNTHESIZED. {why}"))
+    B.append(
+        _p(
+            f"Evidence: the certified decay rates are LMI certificates re-checked with numpy. Every other row is "
+            f"the worst value on {sc.linear_models} models (the box corners at both extreme measurement errors, "
+            f"then Monte Carlo samples with the error uniform within its bound, seed {sc.seed}) for the linear "
+            f"metrics, and on {sc.time_models} runs (the corners at both extreme errors, every manoeuvre of the "
+            "case) on the nonlinear model with the drive's limits: sampled, not certified. Neither gain is one "
+            "of the dossier's gain sets and neither has an overall verdict; the rows say whether each worst "
+            "value meets the case's bound."
+        )
+    )
+    names = [FIXED_NAME, sc.scheduled.name if sc.scheduled is not None else "scheduled"]
+    rows = []
+    for r in schedule_rows(sc, d.case.requirements):
+        cells = [r["quantity"], r["unit"], "-" if r["bound"] is None else fmt(r["bound"])]
+        for v, ok in zip(r["values"], r["meets"]):
+            cells.append("-" if v is None else fmt(v) + ("" if ok is None else (" (meets)" if ok else " (FAILS)")))
+        rows.append(cells)
+    B.append(
+        Table(
+            f"Best fixed gain against the gain scheduled on the measured {label}",
+            ["quantity", "unit", "case bound", *names],
+            rows,
+            "schedule_comparison",
+        )
+    )
+    gains = []
+    if sc.fixed is not None:
+        gains.append([FIXED_NAME, "K", *(", ".join(fmt(x, 5) for x in row) for row in sc.fixed.K)])
+    if sc.scheduled is not None:
+        g = sc.scheduled
+        gains.append([g.name, "K0", *(", ".join(fmt(x, 5) for x in row) for row in g.K0)])
+        gains.append([g.name, f"K1 [per {unit}]", *(", ".join(fmt(x, 5) for x in row) for row in g.K1)])
+    B.append(
+        Table(
+            "The two gains (u = -K x; SI units)", ["gain", "matrix", "left row", "right row"], gains, "schedule_gains"
+        )
+    )
+    return B
+
+
+def case_name(sc) -> str:
+    """The scheduled gain's name (also when its synthesis failed)."""
+    return sc.scheduled.name if sc.scheduled is not None else next((k for k in sc.vertices if k != "best_fixed"), "")
+
+
 def figure_plan(d) -> list[tuple[str, str, object]]:
     """The dossier's figures as ``(name, caption, factory)``; each factory draws a new Figure.
 
@@ -1237,6 +1364,7 @@ def _write_files(d, target: FolderTarget, blocks, figs, today: str) -> None:
             "tuning": _tuning_for_json(getattr(d, "tuning", None)),
             "front": getattr(d, "front", None),
             "tolerances": getattr(d, "tolerances", None),
+            "scheduling": _schedule_for_json(d),
             "campaigns": list(getattr(d, "campaigns", ())),
             "sampled_loop": {
                 "margins": getattr(d, "sampled_margins", None),
@@ -1247,6 +1375,44 @@ def _write_files(d, target: FolderTarget, blocks, figs, today: str) -> None:
         (tmp / "results.json").write_text(dumps(results), encoding="utf-8")
         render_pdf(blocks, figs, tmp / "dossier.pdf", d.case.title)
         (tmp / "COMPLETE").write_text(f"dossier complete; generated {today}\n", encoding="utf-8")
+
+
+def _schedule_for_json(d):
+    """The schedule study for results.json: the gains, the schedule, and one record per compared quantity
+    (``to_si`` turns the degree and millisecond records into radians and seconds)."""
+    sc = getattr(d, "schedule", None)
+    if sc is None:
+        return None
+    g = sc.scheduled
+    return {
+        "schedule": {
+            "parameter": sc.schedule.parameter,
+            "unit": PARAMETERS[sc.schedule.parameter].unit,
+            "nominal": sc.schedule.nominal,
+            "measurement_error": sc.schedule.error,
+        },
+        "fixed_gain": None if sc.fixed is None else sc.fixed.K,
+        "scheduled_gain": None if g is None else {"K0": g.K0, "K1": g.K1},
+        "certified_decay_rate_per_s": sc.certified,
+        "vertices": sc.vertices,
+        "solves": sc.solves,
+        "errors": sc.errors,
+        "linear_models": sc.linear_models,
+        "time_runs": sc.time_models,
+        "seed": sc.seed,
+        "comparison": [
+            {
+                "quantity": r["quantity"],
+                "unit": r["unit"],
+                "requirement": r["requirement"],
+                "bound": r["bound"],
+                "values": r["values"],
+                "meets": r["meets"],
+            }
+            for r in schedule_rows(sc, d.case.requirements)
+        ],
+        "gains_compared": [sc.fixed.name if sc.fixed is not None else None, None if g is None else g.name],
+    }
 
 
 def _tuning_for_json(tuning):

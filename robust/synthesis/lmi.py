@@ -114,6 +114,8 @@ class Spec:
     state_scale: np.ndarray = field(default_factory=lambda: DEFAULT_STATE_SCALE.copy())
     input_scale: float = 1.0
     fixed_gain: np.ndarray | None = None  # analysis of a given gain (u = -K x, SI): Y is tied to K X1
+    scheduled: bool = False  # synthesize K0 + d K1 on the polytope's schedule (moment_box with a schedule)
+    fixed_slope: np.ndarray | None = None  # with fixed_gain: the given gain's K1 (u = -(K0 + d K1) x, per unit of d)
     lyapunov_bound: float = 1e3  # upper bound of the Lyapunov matrix (scaled coordinates); relaxed when active
 
 
@@ -155,6 +157,7 @@ class SynthesisResult:
     spec: Spec
     epsilon: float | None = None
     solve_count: int = 0
+    K1: np.ndarray | None = None  # a scheduled gain's slope (per unit of the measured parameter), project's sign
 
 
 class Infeasible(ValueError):
@@ -168,6 +171,41 @@ def _he(M):
 def _sym(M):
     """Symmetric by construction (cvxpy would silently keep only the symmetric part)."""
     return 0.5 * (M + M.T)
+
+
+def _schedule_of(poly: Polytope, spec: Spec):
+    """``(t, rho)``: the vertex deviations of the measured parameter scaled to at most 1 (``d = rho t``), or
+    ``(None, 1)`` when the gain is not scheduled."""
+    if not spec.scheduled and spec.fixed_slope is None:
+        return None, 1.0
+    if poly.schedule is None:
+        raise ValueError("a scheduled gain needs a polytope built with a schedule (moment_box(box, schedule=...))")
+    d = np.asarray(poly.schedule, dtype=float)
+    rho = float(np.abs(d).max())
+    if float(d.max() - d.min()) <= 1e-12 * max(rho, 1.0):
+        raise ValueError(
+            "the measured parameter takes one value on every vertex: range it (or give it a measurement error) "
+            "before scheduling a gain on it"
+        )
+    return d / rho, rho
+
+
+def _at_vertex(Y, i: int):
+    """The gain variable's value at vertex ``i``: ``Y`` is ``(2, 4)`` (one gain) or ``(m, 2, 4)`` (scheduled)."""
+    return Y[i] if Y.ndim == 3 else Y
+
+
+def _gain_values(poly: Polytope, spec: Spec, X1, Y):
+    """``(K0, K1)`` in SI (this module's sign) from a point; ``K1`` is ``None`` for one gain."""
+    Xi = np.linalg.inv(X1)
+    unscale = np.diag(1.0 / spec.state_scale)
+    if Y.ndim == 2:
+        return spec.input_scale * (Y @ Xi) @ unscale, None
+    t, rho = _schedule_of(poly, spec)
+    i, j = int(np.argmin(t)), int(np.argmax(t))
+    Y1 = (Y[j] - Y[i]) / (t[j] - t[i])
+    Y0 = Y[i] - t[i] * Y1
+    return spec.input_scale * (Y0 @ Xi) @ unscale, spec.input_scale * (Y1 @ Xi) @ unscale / rho
 
 
 def _scaled(poly: Polytope, spec: Spec):
@@ -299,14 +337,13 @@ def _common(poly: Polytope, spec: Spec, alpha: float, delta: float, effort: int 
     solver, status = _solve(prob, effort, options)
     if solver is None:
         return None, status
-    X1v, Yv = h["X1"].value, h["Y"].value
+    X1v, Yv = h["X1"].value, _y_values(h)
     slack_vals = _slack_values(h)
-    K_scaled = Yv @ np.linalg.inv(X1v)
-    K = h["spec"].input_scale * K_scaled @ np.diag(1.0 / h["spec"].state_scale)
+    K, K1 = _gain_values(poly, h["spec"], X1v, Yv)
     gamma_v = float(h["gamma"].value) if h["gamma"] is not None else None
     cert = _check_common(poly, h["spec"], alpha, X1v, Yv, slack_vals, delta, gamma_v)
     value = float(prob.value)
-    return {"K": K, "solver": solver, "status": status, "certificate": cert, "value": value}, status
+    return {"K": K, "K1": K1, "solver": solver, "status": status, "certificate": cert, "value": value}, status
 
 
 def _slack_values(h) -> list:
@@ -330,11 +367,25 @@ def _build_common(poly: Polytope, spec: Spec, delta: float, rate_slack: bool = F
     E, A, B = _scaled(poly, spec)
     n = 4
     X1 = cp.Variable((n, n), symmetric=True)
+    t_sched, rho = _schedule_of(poly, spec)
+    Y1 = None
     if spec.fixed_gain is None:
         Y = cp.Variable((2, n))
+        if t_sched is not None:
+            Y1 = cp.Variable((2, n))  # K1 = rho^-1 Y1 X1^-1 (scaled)
     else:  # the gain is given: in scaled coordinates Y = K_s X1 with K_s = -K S / u_scale (an expression)
         K_s = -(np.asarray(spec.fixed_gain, dtype=float) / spec.input_scale) @ np.diag(spec.state_scale)
         Y = K_s @ X1
+        if t_sched is not None:
+            K1_s = -(rho * np.asarray(spec.fixed_slope, dtype=float) / spec.input_scale) @ np.diag(spec.state_scale)
+            Y1 = K1_s @ X1
+    # the gain variable at each vertex (Y + t_i Y1 when scheduled) and at the extremes of the measured value
+    # (a constraint affine in the gain alone holds for every t in between when it holds at both ends)
+    if Y1 is None:
+        Yv, Yends = [Y] * A.shape[0], [Y]
+    else:
+        Yv = [Y + float(t) * Y1 for t in t_sched]
+        Yends = [Y + float(t_sched.min()) * Y1, Y + float(t_sched.max()) * Y1]
     Z = np.zeros((n, n))
     cons = [X1 >> delta * np.eye(n), X1 << spec.lyapunov_bound * np.eye(n)]
     s_rate = cp.Variable(name="rate_slack") if rate_slack else None
@@ -356,11 +407,11 @@ def _build_common(poly: Polytope, spec: Spec, delta: float, rate_slack: bool = F
     for i in range(A.shape[0]):
         for k, ((L, M), (X3, X4)) in enumerate(zip(regs, slacks)):
             if plain:
-                S = A[i] @ X1 + B[i] @ Y
+                S = A[i] @ X1 + B[i] @ Yv[i]
                 blk = two_alpha * X1 + S + S.T if k == 0 else _kron_block(L, M, X1, S)
                 pad = 0
             else:
-                S = cp.bmat([[X3, X4], [A[i] @ X1 + B[i] @ Y - E[i] @ X3, -E[i] @ X4]])
+                S = cp.bmat([[X3, X4], [A[i] @ X1 + B[i] @ Yv[i] - E[i] @ X3, -E[i] @ X4]])
                 blk = two_alpha * Xbar + S + S.T if k == 0 else _kron_block(L, M, Xbar, S)
                 pad = n
             size = blk.shape[0]
@@ -369,7 +420,7 @@ def _build_common(poly: Polytope, spec: Spec, delta: float, rate_slack: bool = F
                 C = cp.bmat(
                     [
                         [Qh @ X1] + ([np.zeros((n, n))] if pad else []),
-                        [Rh @ Y] + ([np.zeros((2, n))] if pad else []),
+                        [Rh @ Yv[i]] + ([np.zeros((2, n))] if pad else []),
                     ]
                 )
                 big = cp.bmat([[blk, C.T], [C, -np.eye(n + 2)]])
@@ -379,9 +430,12 @@ def _build_common(poly: Polytope, spec: Spec, delta: float, rate_slack: bool = F
             else:
                 cons.append(_sym(blk) << -delta * np.eye(size))
     kappa = cp.Variable()
-    cons.append(_sym(cp.bmat([[X1, Y.T], [Y, kappa * np.eye(2)]])) >> 0)
+    for Ye in Yends:
+        cons.append(_sym(cp.bmat([[X1, Ye.T], [Ye, kappa * np.eye(2)]])) >> 0)
     obj = kappa
-    extra = _ellipsoid_constraints(spec, X1, Y, cons)
+    extra = False
+    for Ye in Yends:
+        extra = _ellipsoid_constraints(spec, X1, Ye, cons, states=Ye is Yends[0])
     if spec.objective == "cost":
         xs = np.diag(1.0 / spec.state_scale) @ np.atleast_2d(spec.cost_states).T
         gamma = cp.Variable()
@@ -402,6 +456,8 @@ def _build_common(poly: Polytope, spec: Spec, delta: float, rate_slack: bool = F
         "two_alpha": two_alpha,
         "X1": X1,
         "Y": Y,
+        "Y1": Y1,
+        "t": t_sched,
         "slacks": slacks,
         "gamma": gamma if spec.objective == "cost" else None,
         "spec": spec,
@@ -410,11 +466,19 @@ def _build_common(poly: Polytope, spec: Spec, delta: float, rate_slack: bool = F
     return prob, handles
 
 
-def _ellipsoid_constraints(spec: Spec, X1, Y, cons) -> bool:
+def _y_values(h):
+    """The gain variable's value: ``(2, 4)``, or ``(m, 2, 4)`` per vertex for a scheduled gain."""
+    if h["Y1"] is None:
+        return h["Y"].value
+    Y0, Y1 = h["Y"].value, h["Y1"].value
+    return Y0[None] + h["t"][:, None, None] * Y1[None]
+
+
+def _ellipsoid_constraints(spec: Spec, X1, Y, cons, *, states: bool = True) -> bool:
     if spec.torque_limit is None:
         return False
     xs = np.diag(1.0 / spec.state_scale) @ np.atleast_2d(spec.initial_states).T
-    for j in range(xs.shape[1]):
+    for j in range(xs.shape[1] if states else 0):
         x0 = xs[:, j : j + 1]
         cons.append(_sym(cp.bmat([[np.ones((1, 1)), x0.T], [x0, X1]])) >> 0)
     lim = (spec.torque_limit / spec.input_scale) ** 2
@@ -443,10 +507,11 @@ def _check_common(poly, spec, alpha, X1, Y, slacks, delta, gamma: float | None =
     for r, ((L, M), (X3, X4)) in enumerate(zip(_regions(spec, alpha), slacks)):
         top = -np.inf
         for i in range(A.shape[0]):
+            Yi = _at_vertex(Y, i)
             if plain:
-                blk = _kron_value(L, M, X1, A[i] @ X1 + B[i] @ Y)
+                blk = _kron_value(L, M, X1, A[i] @ X1 + B[i] @ Yi)
             else:
-                S = np.block([[X3, X4], [A[i] @ X1 + B[i] @ Y - E[i] @ X3, -E[i] @ X4]])
+                S = np.block([[X3, X4], [A[i] @ X1 + B[i] @ Yi - E[i] @ X3, -E[i] @ X4]])
                 blk = _kron_value(L, M, Xbar, S)
             top = max(top, float(np.linalg.eigvalsh(0.5 * (blk + blk.T)).max()))
         per_region[_region_names(spec)[r]] = top
@@ -466,7 +531,9 @@ def _check_common(poly, spec, alpha, X1, Y, slacks, delta, gamma: float | None =
         )
         lim = (spec.torque_limit / spec.input_scale) ** 2
         bound = max(
-            psd_gap(np.block([[X1, Y[j : j + 1, :].T], [Y[j : j + 1, :], lim * np.ones((1, 1))]])) for j in range(2)
+            psd_gap(np.block([[X1, Yi[j : j + 1, :].T], [Yi[j : j + 1, :], lim * np.ones((1, 1))]]))
+            for Yi in (Y if Y.ndim == 3 else Y[None])
+            for j in range(2)
         )
         per_region["torque ellipsoid: initial states inside"] = inside
         per_region["torque ellipsoid: torque bound"] = bound
@@ -478,14 +545,15 @@ def _check_common(poly, spec, alpha, X1, Y, slacks, delta, gamma: float | None =
         L, M = _regions(spec, alpha)[0]
         top = -np.inf
         for i in range(A.shape[0]):
+            Yi = _at_vertex(Y, i)
             if plain:
-                blk = _kron_value(L, M, X1, A[i] @ X1 + B[i] @ Y)
-                C = np.vstack([Qh @ X1, Rh @ Y])
+                blk = _kron_value(L, M, X1, A[i] @ X1 + B[i] @ Yi)
+                C = np.vstack([Qh @ X1, Rh @ Yi])
             else:
                 X3, X4 = slacks[0]
-                S = np.block([[X3, X4], [A[i] @ X1 + B[i] @ Y - E[i] @ X3, -E[i] @ X4]])
+                S = np.block([[X3, X4], [A[i] @ X1 + B[i] @ Yi - E[i] @ X3, -E[i] @ X4]])
                 blk = _kron_value(L, M, Xbar, S)
-                C = np.vstack([np.hstack([Qh @ X1, np.zeros((n, n))]), np.hstack([Rh @ Y, np.zeros((2, n))])])
+                C = np.vstack([np.hstack([Qh @ X1, np.zeros((n, n))]), np.hstack([Rh @ Yi, np.zeros((2, n))])])
             big = np.block([[blk, C.T], [C, -np.eye(n + 2)]])
             top = max(top, float(np.linalg.eigvalsh(0.5 * (big + big.T)).max()))
         xs = np.diag(1.0 / spec.state_scale) @ np.atleast_2d(spec.cost_states).T
@@ -618,7 +686,9 @@ def _rate_of(poly: Polytope, spec: Spec, X1, Y, slacks, delta: float) -> float:
     X3, X4 = slacks[0]
     Z = np.zeros((n, n))
     Xbar = np.block([[X1, Z], [Z, Z]])
-    S = np.stack([np.block([[X3, X4], [A[i] @ X1 + B[i] @ Y - E[i] @ X3, -E[i] @ X4]]) for i in range(A.shape[0])])
+    S = np.stack(
+        [np.block([[X3, X4], [A[i] @ X1 + B[i] @ _at_vertex(Y, i) - E[i] @ X3, -E[i] @ X4]]) for i in range(A.shape[0])]
+    )
     base = S + np.swapaxes(S, 1, 2) + delta * np.eye(2 * n)
 
     def top(a: float) -> float:
@@ -642,7 +712,7 @@ def _slack_solve(poly: Polytope, spec: Spec, a: float, delta: float):
     solver, status = _solve(prob, options=SEARCH_OPTIONS)
     if solver is None:
         return None, None, None, np.nan, status
-    Yv = h["Y"].value  # a variable, or the expression K_s X1 for a fixed gain
+    Yv = _y_values(h)  # a variable, or the expression K_s X1 for a fixed gain; per vertex when scheduled
     return h["X1"].value, Yv, _slack_values(h), float(h["rate_slack"].value), f"{solver}: {status}"
 
 
@@ -737,11 +807,11 @@ def _raise_rate(
 def _point_result(poly, spec, a, point, delta, status) -> dict:
     """The result dict of a rate-search point, certified (numpy) at the raw rate ``a`` it was computed for."""
     X1, Y, slacks = point
-    K = spec.input_scale * (Y @ np.linalg.inv(X1)) @ np.diag(1.0 / spec.state_scale)
+    K, K1 = _gain_values(poly, spec, X1, Y)
     cert = _check_common(poly, spec, a, X1, Y, slacks, delta)
     # the gain-size objective of the point: the smallest kappa with [[X1, Y^T], [Y, kappa I]] >= 0
-    kappa = float(np.linalg.eigvalsh(Y @ np.linalg.solve(X1, Y.T)).max())
-    return {"K": K, "solver": status.split(":")[0], "status": status, "certificate": cert, "value": kappa}
+    kappa = max(float(np.linalg.eigvalsh(Yi @ np.linalg.solve(X1, Yi.T)).max()) for Yi in (Y if Y.ndim == 3 else [Y]))
+    return {"K": K, "K1": K1, "solver": status.split(":")[0], "status": status, "certificate": cert, "value": kappa}
 
 
 def _maximize_decay(poly, spec, alpha, res, delta, say=None):
@@ -975,6 +1045,8 @@ def synthesize(
         raise ValueError(f"objective: expected 'decay', 'gain' or 'cost', got {spec.objective!r}")
     if spec.lyapunov not in ("common", "parameter_dependent"):
         raise ValueError(f"lyapunov: expected 'common' or 'parameter_dependent', got {spec.lyapunov!r}")
+    if spec.scheduled and spec.lyapunov != "common":
+        raise ValueError("a scheduled gain is synthesized with a common Lyapunov matrix (lyapunov = 'common')")
     say = progress
     solves = 0
     res, status, c = _attempt(poly, spec, spec.decay_rate, delta, say)
@@ -1018,6 +1090,7 @@ def synthesize(
         spec=spec,
         epsilon=res.get("epsilon"),
         solve_count=solves,
+        K1=None if res.get("K1") is None else -res["K1"],
     )
 
 
@@ -1044,6 +1117,7 @@ def certify_gain(
     *,
     input_scale: float,
     upper: float,
+    slope: np.ndarray | None = None,
     delta: float = 1e-6,
     lyapunov_bound: float = X_BOUND,
     progress: Callable[[str], None] | None = None,
@@ -1059,12 +1133,21 @@ def certify_gain(
     (``resolution`` is its stopping step, not a proven distance to the optimum);
     the bound on the Lyapunov matrix is widened (to :data:`X_BOUND_MAX`) while it
     is what stops the certificate.
+
+    A scheduled gain ``K + d slope`` is certified on a scheduled polytope (``poly.schedule``): the gain
+    at vertex ``i`` is ``K + d_i slope``.  The vertices are those reduced in the coordinates the LMIs
+    depend on: with ``slope`` zero (or ``None``) the gain ignores the measurement and the polytope's
+    ``fixed`` vertices are used, so the answer is the fixed gain's certificate exactly.
     """
+    scheduled = slope is not None and bool(np.any(np.asarray(slope, dtype=float) != 0.0))
+    if not scheduled and poly.fixed is not None:
+        poly = poly.fixed
     spec = Spec(
         decay_rate=0.0,
         objective="gain",
         input_scale=float(input_scale),
         fixed_gain=np.asarray(K, dtype=float),
+        fixed_slope=np.asarray(slope, dtype=float) if scheduled else None,
         lyapunov_bound=float(lyapunov_bound),
     )
     # stability first (one solve at ordinary effort per bound): a rate not certified only lowers the answer

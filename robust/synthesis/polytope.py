@@ -62,6 +62,8 @@ class Polytope:
     B: np.ndarray
     guarantee: str
     facts: dict
+    schedule: np.ndarray | None = None  # per vertex: measured scheduling value minus its nominal [unit of it]
+    fixed: Polytope | None = None  # a scheduled polytope's vertices for a gain that ignores the measurement
 
     @property
     def vertices(self) -> int:
@@ -312,7 +314,10 @@ def moment_intervals(box: Box) -> dict[str, tuple[float, float]]:
     return {n: tuple(P.facts["moment_intervals"][n]) for n in MOMENT_NAMES}
 
 
-def moment_box(box: Box) -> Polytope:
+SCHEDULABLE = ("payload.mass_kg",)
+
+
+def moment_box(box: Box, *, schedule=None) -> Polytope:
     """Rigorous descriptor polytope from the mass moments of chassis and payload.
 
     ``E``, ``A`` and ``B`` are affine in the moments ``(m, m h, m h^2)`` of the
@@ -321,6 +326,20 @@ def moment_box(box: Box) -> Polytope:
     image (mass x height: see :func:`_mass_height_vertices`; others:
     intervals), and the vertices of the product polytope are mapped to
     ``(E, A, B)``.
+
+    With a ``schedule`` (:class:`robust.gains.Schedule` on the payload mass) the
+    gain is ``K0 + d K1`` with ``d`` the measured payload mass minus its nominal,
+    the measurement off by at most the schedule's error.  The vertex LMIs then
+    contain ``B K = k B0 (K0 + d K1)``: affine in ``(q, d, w)`` with ``w = k d``.
+    The product polytope gets one more group (the measurement error, two values)
+    and every vertex carries ``d`` (the payload mass of its vertex plus its error,
+    minus the nominal) and ``w``; the points ``(q, d, w)`` of the product vertices
+    contain every model's ``(q, d, k d)`` (for a fixed vertex of the other groups,
+    ``(k, k d)`` is linear in ``k``), and the reduction to hull vertices is done in
+    ``(q, d, w)``, so a vertex LMI affine in those holds on the whole box.  The
+    returned polytope's ``schedule`` holds ``d`` per vertex and ``fixed`` the
+    polytope of a gain that ignores the measurement (the same vertices reduced in
+    ``q`` alone, identical to ``moment_box(box)``).
     """
     if len(box.ranges) > MAX_RIGOROUS_RANGES:
         raise ValueError(
@@ -370,6 +389,15 @@ def moment_box(box: Box) -> Polytope:
     cb = bounds("wheel.bearing_friction_n_m_s_per_rad")
     groups.append(np.array(sorted({cb[0], cb[1]}))[:, None])
     cols.append("c_b")
+    if schedule is not None:
+        if schedule.parameter not in SCHEDULABLE:
+            raise ValueError(
+                f"a gain can be scheduled on {', '.join(SCHEDULABLE)} only (the LMIs need the measured value to "
+                f"be a coordinate of the moment polytope), got {schedule.parameter!r}"
+            )
+        err = float(schedule.error)
+        groups.append(np.array(sorted({-err, err}))[:, None])
+        cols.append("error")
     combos = list(itertools.product(*[range(g.shape[0]) for g in groups]))
     rows = []
     for combo in combos:
@@ -393,11 +421,35 @@ def moment_box(box: Box) -> Polytope:
     m33 = inertia("pitch") + col["chassis.mh2"] + col["payload.mh2"]
     m22 = 2 * mw * d**2 + 2 * Jw * d**2 / r**2 + 2 * Kw + inertia("yaw")
     q = np.stack([m11, m22, m33, Ml, col["k"], col["c_b"]], axis=1)
+    if schedule is not None:
+        d = col["payload.m"] + col["error"] - float(schedule.nominal)
+        qdw = np.unique(np.round(np.column_stack([q, d, col["k"] * d]), 12), axis=0)
+        kept = hull_vertices(qdw)
+        fixed = moment_box(box)
+        poly = _moment_polytope(box, kept[:, :6], int(qdw.shape[0]), cols)
+        facts = dict(
+            poly.facts,
+            scheduling={
+                "parameter": schedule.parameter,
+                "nominal": float(schedule.nominal),
+                "measurement_error": err,
+                "deviation_range": [float(kept[:, 6].min()), float(kept[:, 6].max())],
+                "reduced_in": "moments q, deviation d and k d",
+            },
+        )
+        guarantee = poly.guarantee + (
+            f"; the gain is scheduled on the measured {schedule.parameter} (measurement error within +-{err:g}), "
+            "and the vertices also span the measured value and its product with the torque-constant ratio"
+        )
+        return Polytope("moment_box", poly.E, poly.A, poly.B, guarantee, facts, schedule=kept[:, 6], fixed=fixed)
     # drop duplicate vertices, then those that are convex combinations of the others (E, A and B are affine
     # in q, so the hull of the remaining points maps to the same polytope of models)
     q = np.unique(np.round(q, 12), axis=0)
-    product_vertices = int(q.shape[0])
-    q = hull_vertices(q)
+    return _moment_polytope(box, hull_vertices(q), int(q.shape[0]), cols)
+
+
+def _moment_polytope(box: Box, q: np.ndarray, product_vertices: int, cols: list[str]) -> Polytope:
+    """The descriptor polytope of the moment vertices ``q`` (already reduced)."""
     mats = descriptor_matrices(box, q)
     Ev = np.linalg.eigvalsh(mats["E"]).min(axis=1)
     if np.any(Ev <= 0):
