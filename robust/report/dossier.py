@@ -23,8 +23,8 @@ from robust.dynamics import torque_envelope
 from robust.outputs import FolderTarget, file_stems, staged_folder
 from robust.report import figures as F
 from robust.report.jsonout import dumps
-from robust.report.text import fmt as _fmt_text
 from robust.report.text import METRIC_LABELS, plain_value, time_verdict_row
+from robust.report.text import fmt as _fmt_text
 from robust.synthesis.lmi import explain_status
 from robust.vehicle import PARAMETERS, get_parameter, plant_batch
 
