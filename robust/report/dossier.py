@@ -62,7 +62,7 @@ def _csv_cell(c) -> str:
     return str(c)
 
 
-RESULTS_SCHEMA_VERSION = "3"  # results.json follows robust/report/results.schema.json
+RESULTS_SCHEMA_VERSION = "4"  # results.json follows robust/report/results.schema.json
 
 SAFETY = [
     "These vehicles carry people and goods among people. This dossier analyses a model; "
