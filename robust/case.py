@@ -489,6 +489,11 @@ def _schedule(doc: dict, vehicle: Vehicle, ranges) -> dict:
     names |= {doc.get("synthesis", {}).get("name", "robust_lmi"), doc.get("tuning", {}).get("name", "tuned")}
     if name in names or name == FIXED_NAME:
         raise CaseError(f"'schedule.name': {name!r} is already the name of a gain set; choose another")
+    if f"{name}_tuned" in names:
+        raise CaseError(
+            f"'schedule.name': the schedule study also names a gain {name + '_tuned'!r}, already a gain set's name; "
+            "choose another"
+        )
     if FIXED_NAME in names:
         raise CaseError(
             f"'gains.{FIXED_NAME}': with [schedule] the name {FIXED_NAME!r} is taken by the schedule study's best "

@@ -175,7 +175,7 @@ def run_dossier(
         from robust.scheduling import run_schedule_study
 
         say("what measuring the payload buys")
-        schedule = run_schedule_study(case, progress=progress)
+        schedule = run_schedule_study(case, tuned=None if tuning is None else tuning.gain, progress=progress)
     if not gains:
         raise ValueError("the dossier needs at least one gain set: add [gains.NAME], [synthesis] or a gain file")
     if tuning is not None and tuning.assessment is not None and len(gains) > 1:
@@ -230,14 +230,16 @@ def run_dossier(
             inputs.append(Input(f"gains/{stem}.toml", str(given[g.name]), Path(given[g.name]).read_bytes()))
         else:
             inputs.append(Input(f"gains/{stem}.toml", "written by this dossier", gain_file_text(g).encode("utf-8")))
-    if schedule is not None and schedule.scheduled is not None:
+    if schedule is not None:
         from robust.gains import scheduled_gain_file_text
 
-        extra = [schedule.scheduled.name] + ([schedule.fixed.name] if schedule.fixed is not None else [])
+        more = [g for g in (schedule.scheduled, schedule.tuned_scheduled) if g is not None]
+        extra = [g.name for g in more] + ([schedule.fixed.name] if schedule.fixed is not None else [])
         stems = file_stems([*(g.name for g in gains), *extra])
-        text = scheduled_gain_file_text(schedule.scheduled)
-        where = "written by this dossier (scheduled gain)"
-        inputs.append(Input(f"gains/{stems[schedule.scheduled.name]}.toml", where, text.encode("utf-8")))
+        for g in more:
+            text = scheduled_gain_file_text(g)
+            where = "written by this dossier (scheduled gain)"
+            inputs.append(Input(f"gains/{stems[g.name]}.toml", where, text.encode("utf-8")))
         if schedule.fixed is not None:
             text = gain_file_text(schedule.fixed)
             where = "written by this dossier (best fixed gain of the schedule study)"

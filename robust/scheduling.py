@@ -19,7 +19,7 @@ from __future__ import annotations
 
 import time
 from collections.abc import Callable
-from dataclasses import dataclass, replace
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 
@@ -46,7 +46,8 @@ class ScheduleComparison:
     fixed, scheduled
         The two gains (``fixed`` is ``None`` when its synthesis failed; then ``errors`` says why).
     certified
-        Certified decay rate per gain name (LMI certificate re-checked with numpy). [1/s]
+        Certified decay rate per gain name (LMI certificate re-checked with numpy; ``None`` when not even
+        stability could be certified). [1/s]
     vertices
         Vertices of each gain's polytope.
     imposed
@@ -71,7 +72,7 @@ class ScheduleComparison:
     schedule: Schedule
     fixed: GainSet | None
     scheduled: ScheduledGain | None
-    certified: dict[str, float]
+    certified: dict[str, float | None]
     vertices: dict[str, int]
     imposed: tuple[str, ...]
     not_imposed: dict[str, str]
@@ -83,6 +84,18 @@ class ScheduleComparison:
     solves: dict[str, int]
     seconds: float
     seed: int
+    tuned: GainSet | None = None  # the dossier's tuned (fixed) gain, when the case asks for [tuning]
+    tuned_scheduled: ScheduledGain | None = None  # the scheduled gain tuned from it (tuning.tune_scheduled)
+    scores: dict[str, float] = field(default_factory=dict)  # smallest normalised margin on the scenarios
+    scenario_models: int = 0
+
+    @property
+    def columns(self) -> tuple[str, ...]:
+        """The gains compared, in the order of the dossier's columns (LMI pair, then tuned pair)."""
+        out = [FIXED_NAME, self.scheduled.name if self.scheduled is not None else None]
+        if self.tuned is not None:
+            out += [self.tuned.name, self.tuned_scheduled.name if self.tuned_scheduled is not None else None]
+        return tuple(n for n in out if n is not None)
 
 
 def comparison_points(case: Case, samples: int = SAMPLES) -> tuple[np.ndarray, np.ndarray]:
@@ -136,11 +149,22 @@ def _worst(values: dict[str, np.ndarray]) -> dict[str, float]:
 
 
 def run_schedule_study(
-    case: Case, *, samples: int = SAMPLES, progress: Callable[[str], None] | None = None
+    case: Case,
+    *,
+    tuned: GainSet | None = None,
+    samples: int = SAMPLES,
+    evaluations: int = 300,
+    progress: Callable[[str], None] | None = None,
 ) -> ScheduleComparison:
-    """Synthesize the best fixed gain and the scheduled gain and compare them on the same models."""
+    """Synthesize the best fixed gain and the scheduled gain and compare them on the same models.
+
+    With ``tuned`` (the dossier's tuned gain) a scheduled gain is also tuned from it
+    (:func:`robust.synthesis.tuning.tune_scheduled`, ``evaluations`` Nelder-Mead evaluations) and both
+    join the comparison, each with its fixed-gain LMI certificate."""
     from robust.design import make_spec
     from robust.simulate import simulate
+    from robust.synthesis.lmi import certify_gain
+    from robust.synthesis.tuning import tune_scheduled
 
     t0 = time.perf_counter()
     if not case.schedule:
@@ -177,6 +201,12 @@ def run_schedule_study(
             "lmi",
             dict(prov, certified_decay_rate_per_s=r.decay_rate, scheduled_on=sched.parameter),
         )
+    tuned_scheduled, scores, scenario_models = None, {}, 0
+    if tuned is not None:
+        t = tune_scheduled(case, tuned, name=f"{name}_tuned", evaluations=evaluations, progress=say)
+        tuned_scheduled = t["gain"]
+        scores = {tuned.name: t["start_score"], tuned_scheduled.name: t["score"]}
+        scenario_models = t["scenarios"]
     pts, err = comparison_points(case, samples)
     measured = measured_values(case, pts, err)
     gains = {}
@@ -184,6 +214,9 @@ def run_schedule_study(
         gains[fixed_name] = np.broadcast_to(fixed.K, (len(pts), 2, 4))
     if scheduled is not None:
         gains[name] = scheduled.at(measured)
+    if tuned is not None:
+        gains[tuned.name] = np.broadcast_to(tuned.K, (len(pts), 2, 4))
+        gains[tuned_scheduled.name] = tuned_scheduled.at(measured)
     linear = {}
     for key, K in gains.items():
         if say is not None:
@@ -202,11 +235,27 @@ def run_schedule_study(
             pitch = max(pitch, float(res.metrics["peak_pitch_rad"].max()))
             falls += int(res.fell.sum())
         time_worst[key] = {"peak_torque_n_m": torque, "peak_pitch_rad": pitch, "falls": float(falls)}
+    certified = {k: float(r.decay_rate) for k, r in results.items()}
+    if tuned is not None:
+        for g, poly, slope in (
+            (tuned, polys[fixed_name], None),
+            (tuned_scheduled, polys[name], tuned_scheduled.K1),
+        ):
+            if say is not None:
+                say(f"schedule study: LMI certificate of {g.name}")
+            K = g.K if slope is None else g.K0
+            upper = max(linear[g.name]["decay_rate"], 0.0)
+            c = certify_gain(poly, K, input_scale=spec.input_scale, upper=upper, slope=slope, progress=say)
+            certified[g.name] = None if c.decay_rate is None else float(c.decay_rate)
+            if c.decay_rate is None:
+                errors[g.name] = (
+                    "stability could not be certified by a common Lyapunov matrix (not a proof of instability)"
+                )
     return ScheduleComparison(
         schedule=sched,
         fixed=fixed,
         scheduled=scheduled,
-        certified={k: float(r.decay_rate) for k, r in results.items()},
+        certified=certified,
         vertices={k: p.vertices for k, p in polys.items()},
         imposed=_imposed(spec),
         not_imposed=not_imposed,
@@ -218,4 +267,8 @@ def run_schedule_study(
         solves={k: r.solve_count for k, r in results.items()},
         seconds=time.perf_counter() - t0,
         seed=case.study.seed,
+        tuned=tuned,
+        tuned_scheduled=tuned_scheduled,
+        scores=scores,
+        scenario_models=scenario_models,
     )

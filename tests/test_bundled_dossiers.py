@@ -2,7 +2,8 @@
 (jsonschema, Draft 2020-12) and keeps every figure under 1 MB.
 
 These are the slowest tests of the suite (one full dossier per bundled case, about a minute each on
-2 cores); the small test cart's dossier is checked in detail in ``test_dossier.py``.
+2 cores, the transporter's nearly two with its schedule study); the small test cart's dossier is checked
+in detail in ``test_dossier.py``.
 """
 
 from __future__ import annotations
@@ -37,3 +38,15 @@ def test_bundled_dossier_validates_against_the_schema(name, tmp_path):
     assert len(figures) >= 10
     for f in figures:
         assert f.stat().st_size <= 1_000_000, f.name
+    # the transporter asks for [schedule]: the certified decay rates of the best fixed gain and of the gain
+    # scheduled on the measured rider mass side by side, with the tuned pair; the scheduled gains as files
+    sc = data["scheduling"]
+    if name != "stand_up_transporter":
+        assert sc is None
+        return
+    assert sc["gains_compared"] == ["best_fixed", "scheduled", "tuned", "scheduled_tuned"]
+    rates = sc["certified_decay_rate_per_s"]
+    assert all(rates[g] is not None and rates[g] > 0 for g in sc["gains_compared"])
+    assert sc["comparison"][0]["values"] == [rates[g] for g in sc["gains_compared"]]
+    assert (out / "gains" / "scheduled.toml").is_file() and (out / "gains" / "scheduled_tuned.toml").is_file()
+    assert "What measuring the rider or cargo mass buys" in (out / "dossier.md").read_text(encoding="utf-8")

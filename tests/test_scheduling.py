@@ -183,3 +183,21 @@ def test_a_scheduled_gain_file_is_not_read_as_a_fixed_gain(tmp_path):
     p.write_text(scheduled_gain_file_text(g), encoding="utf-8")
     with pytest.raises(ValueError, match="missing table 'gain'"):
         read_gain_file(p)
+
+
+def test_scheduled_tuning_starts_from_the_fixed_gain_and_scores_it_per_model(small):
+    """The scheduled tuning's start (K1 = 0) scores exactly what the tuning's scorer gives the fixed gain on
+    the same scenarios (the box corners at both extreme errors), and the result never scores less; its
+    score is recomputed here from the returned K0 and K1 at each scenario's measured value."""
+    from robust.synthesis.tuning import _score, _Scorer, scheduled_scenarios, tune_scheduled
+
+    case = replace(small, schedule={"name": "s", "schedule": SCHEDULE, "constraints": {}})
+    start = resolve_gain(case, case.gains[0])
+    out = tune_scheduled(case, start, name="s_tuned", evaluations=30)
+    pts, err = scheduled_scenarios(case)
+    scorer = _Scorer(case, pts)
+    assert out["start_score"] == pytest.approx(_score(scorer.margins(start.K)), rel=1e-12, abs=1e-12)
+    measured = pts[:, case.box.names.index("payload.mass_kg")] + err
+    again = _score(scorer.margins(out["gain"].at(measured)))
+    assert again == pytest.approx(out["score"], rel=1e-9, abs=1e-12)
+    assert out["score"] >= out["start_score"]

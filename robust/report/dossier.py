@@ -985,10 +985,9 @@ def front_blocks(fr) -> list:
 
 def schedule_rows(sc, req: dict) -> list[dict]:
     """The comparison of the schedule study as records: one per quantity, with the requirement's bound,
-    each gain's worst value and whether it meets the bound (values in display units, ``unit`` says which)."""
-    from robust.case import FIXED_NAME
-
-    names = [FIXED_NAME, sc.scheduled.name if sc.scheduled is not None else None]
+    each compared gain's value (``sc.columns`` order) and whether it meets the bound (values in display
+    units, ``unit`` says which; ``None`` where not evaluated)."""
+    names = sc.columns
     rows = [
         {
             "quantity": "certified decay rate (LMI, every model of the box)",
@@ -999,9 +998,18 @@ def schedule_rows(sc, req: dict) -> list[dict]:
             "values": [sc.certified.get(n) for n in names],
         }
     ]
+    if sc.scores:
+        rows.append(
+            {
+                "quantity": f"smallest normalised requirement margin on the {sc.scenario_models} tuning scenarios",
+                "unit": "-",
+                "requirement": None,
+                "bound": 0.0,
+                "kind": "min",
+                "values": [sc.scores.get(n) for n in names],
+            }
+        )
     for metric, m in METRICS.items():
-        if not all(n in sc.linear for n in names if n is not None):
-            break
         rows.append(
             {
                 "quantity": f"{METRIC_LABELS.get(metric, m.text)} (worst sampled)",
@@ -1012,20 +1020,19 @@ def schedule_rows(sc, req: dict) -> list[dict]:
                 "values": [sc.linear.get(n, {}).get(metric) for n in names],
             }
         )
-    for key, text, unit, kind, rkey, scale in (
-        ("peak_torque_n_m", "peak wheel torque over the manoeuvres", "N m", "max", "max_wheel_torque_n_m", 1.0),
-        ("peak_pitch_rad", "peak pitch over the manoeuvres", "deg", "max", "max_pitch_deg", 180.0 / np.pi),
-        ("falls", "runs that fell", "-", "max", None, 1.0),
+    for key, text, unit, rkey, scale in (
+        ("peak_torque_n_m", "peak wheel torque over the manoeuvres", "N m", "max_wheel_torque_n_m", 1.0),
+        ("peak_pitch_rad", "peak pitch over the manoeuvres", "deg", "max_pitch_deg", 180.0 / np.pi),
+        ("falls", "runs that fell", "-", None, 1.0),
     ):
-        vals = [None if n not in sc.time else sc.time[n][key] * scale for n in names]
         rows.append(
             {
                 "quantity": text,
                 "unit": unit,
                 "requirement": rkey,
                 "bound": 0.0 if key == "falls" else req.get(rkey),
-                "kind": kind,
-                "values": vals,
+                "kind": "max",
+                "values": [None if n not in sc.time else sc.time[n][key] * scale for n in names],
             }
         )
     for r in rows:
@@ -1037,75 +1044,89 @@ def schedule_rows(sc, req: dict) -> list[dict]:
 
 
 def schedule_blocks(d) -> list:
-    """The section "What measuring the payload buys": the best fixed gain beside the scheduled gain."""
+    """The section "What measuring the payload buys": fixed gains beside gains scheduled on the measurement."""
     from robust.case import FIXED_NAME
 
     sc = d.schedule
     s = sc.schedule
     unit = PARAMETERS[s.parameter].unit
     label = PARAMETERS[s.parameter].text
+    sched_name = sc.scheduled.name if sc.scheduled is not None else d.case.schedule.get("name", "scheduled")
     B = [_h(2, f"What measuring the {label} buys")]
     imposed = ", ".join(sc.imposed) if sc.imposed else "no other constraint"
     B.append(
         _p(
-            f"Two gains from the same LMIs on the rigorous polytope (route moment_box, common Lyapunov matrix, "
-            f"largest certified decay rate; also imposed: {imposed}): the best fixed gain ({FIXED_NAME}, "
-            f"{sc.vertices.get(FIXED_NAME, 0)} vertices) and a gain scheduled on the measured {label}, "
-            f"K = K0 + (measured - {s.nominal:g} {unit}) K1, with the measurement within +-{s.error:g} {unit} of "
-            f"the true value ({sc.scheduled.name if sc.scheduled is not None else 'scheduled'}, "
-            f"{sc.vertices.get(case_name(sc), 0)} vertices: the polytope also spans the measured value and its "
-            "product with the torque-constant ratio, so the certificate covers every model at every measurement "
-            "error within the bound)."
+            f"A gain scheduled on the measured {label} is K = K0 + (measured - {s.nominal:g} {unit}) K1, with "
+            f"the measurement within +-{s.error:g} {unit} of the true value. Two gains come from the same LMIs on "
+            "the rigorous polytope (route moment_box, common Lyapunov matrix, largest certified decay rate; also "
+            f"imposed: {imposed}): the best fixed gain ({FIXED_NAME}, {sc.vertices.get(FIXED_NAME, 0)} vertices) "
+            f"and the scheduled gain ({sched_name}, {sc.vertices.get(sched_name, 0)} vertices: the polytope also "
+            "spans the measured value and its product with the torque-constant ratio, so the certificate covers "
+            "every model at every measurement error within the bound)."
         )
     )
+    if sc.tuned is not None and sc.tuned_scheduled is not None:
+        B.append(
+            _p(
+                f"Two more come from the robust tuning: the tuned gain ({sc.tuned.name}, a gain set of this "
+                f"dossier) and a scheduled gain tuned from it ({sc.tuned_scheduled.name}: K0 and K1 "
+                "mirror-symmetric, Nelder-Mead on the smallest normalised margin of every requirement on the "
+                f"{sc.scenario_models} scenario models, the box corners at both extreme measurement errors, "
+                "starting from the tuned gain with K1 = 0). Their certified decay rates are fixed-gain LMI "
+                "certificates on the same two polytopes."
+            )
+        )
     if sc.not_imposed:
         B.append(_p("Not imposed by the LMIs: " + "; ".join(f"{k}: {v}" for k, v in sc.not_imposed.items()) + "."))
     for name, why in sc.errors.items():
-        B.append(_p(f"{name}: NOT SYNTHESIZED. {why}"))
+        B.append(_p(f"{name}: {why}"))
     B.append(
         _p(
             f"Evidence: the certified decay rates are LMI certificates re-checked with numpy. Every other row is "
             f"the worst value on {sc.linear_models} models (the box corners at both extreme measurement errors, "
             f"then Monte Carlo samples with the error uniform within its bound, seed {sc.seed}) for the linear "
-            f"metrics, and on {sc.time_models} runs (the corners at both extreme errors, every manoeuvre of the "
-            "case) on the nonlinear model with the drive's limits: sampled, not certified. Neither gain is one "
-            "of the dossier's gain sets and neither has an overall verdict; the rows say whether each worst "
-            "value meets the case's bound."
+            f"metrics, and on {sc.time_models} runs per gain (the corners at both extreme errors, every "
+            "manoeuvre of the case) on the nonlinear model with the drive's limits: sampled, not certified, and "
+            "without the largest-step and settling checks. Only the tuned gain is one of the dossier's gain sets "
+            "with an overall verdict (see its section); the rows here say whether each worst value meets the "
+            "case's bound."
         )
     )
-    names = [FIXED_NAME, sc.scheduled.name if sc.scheduled is not None else "scheduled"]
+    names = sc.columns
     rows = []
     for r in schedule_rows(sc, d.case.requirements):
         cells = [r["quantity"], r["unit"], "-" if r["bound"] is None else fmt(r["bound"])]
-        for v, ok in zip(r["values"], r["meets"]):
-            cells.append("-" if v is None else fmt(v) + ("" if ok is None else (" (meets)" if ok else " (FAILS)")))
+        for n, v, ok in zip(names, r["values"], r["meets"]):
+            if v is None:
+                cells.append("NOT certified" if n in sc.errors and "certified" in r["quantity"] else "-")
+            else:
+                cells.append(fmt(v) + ("" if ok is None else (" (meets)" if ok else " (FAILS)")))
         rows.append(cells)
     B.append(
         Table(
-            f"Best fixed gain against the gain scheduled on the measured {label}",
+            f"Fixed gains against gains scheduled on the measured {label}",
             ["quantity", "unit", "case bound", *names],
             rows,
             "schedule_comparison",
         )
     )
     gains = []
-    if sc.fixed is not None:
-        gains.append([FIXED_NAME, "K", *(", ".join(fmt(x, 5) for x in row) for row in sc.fixed.K)])
-    if sc.scheduled is not None:
-        g = sc.scheduled
-        gains.append([g.name, "K0", *(", ".join(fmt(x, 5) for x in row) for row in g.K0)])
-        gains.append([g.name, f"K1 [per {unit}]", *(", ".join(fmt(x, 5) for x in row) for row in g.K1)])
+    for g in (sc.fixed, sc.tuned):
+        if g is not None:
+            gains.append([g.name, "K", *(", ".join(fmt(x, 5) for x in row) for row in g.K)])
+    for g in (sc.scheduled, sc.tuned_scheduled):
+        if g is not None:
+            gains.append([g.name, "K0", *(", ".join(fmt(x, 5) for x in row) for row in g.K0)])
+            gains.append([g.name, f"K1 [per {unit}]", *(", ".join(fmt(x, 5) for x in row) for row in g.K1)])
     B.append(
         Table(
-            "The two gains (u = -K x; SI units)", ["gain", "matrix", "left row", "right row"], gains, "schedule_gains"
+            "The compared gains (u = -K x; SI units)",
+            ["gain", "matrix", "left row", "right row"],
+            gains,
+            "schedule_gains",
         )
     )
     return B
-
-
-def case_name(sc) -> str:
-    """The scheduled gain's name (also when its synthesis failed)."""
-    return sc.scheduled.name if sc.scheduled is not None else next((k for k in sc.vertices if k != "best_fixed"), "")
 
 
 def figure_plan(d) -> list[tuple[str, str, object]]:
@@ -1393,6 +1414,11 @@ def _schedule_for_json(d):
         },
         "fixed_gain": None if sc.fixed is None else sc.fixed.K,
         "scheduled_gain": None if g is None else {"K0": g.K0, "K1": g.K1},
+        "tuned_gain": None if sc.tuned is None else sc.tuned.K,
+        "tuned_scheduled_gain": None
+        if sc.tuned_scheduled is None
+        else {"K0": sc.tuned_scheduled.K0, "K1": sc.tuned_scheduled.K1},
+        "tuning_scores": sc.scores,
         "certified_decay_rate_per_s": sc.certified,
         "vertices": sc.vertices,
         "solves": sc.solves,
@@ -1411,7 +1437,7 @@ def _schedule_for_json(d):
             }
             for r in schedule_rows(sc, d.case.requirements)
         ],
-        "gains_compared": [sc.fixed.name if sc.fixed is not None else None, None if g is None else g.name],
+        "gains_compared": list(sc.columns),
     }
 
 
