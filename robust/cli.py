@@ -293,6 +293,34 @@ def _front(args: argparse.Namespace, progress) -> int:
     return 0
 
 
+def _schedule(args: argparse.Namespace, progress) -> int:
+    from robust.case import CaseError, load_case
+    from robust.report.dossier import _schedule_for_json
+    from robust.report.jsonout import dumps
+    from robust.report.text import schedule_text
+    from robust.scheduling import run_schedule_study
+
+    case = load_case(args.case)
+    if not case.schedule:
+        raise CaseError(
+            f"{args.case}: no [schedule] table: name the measured parameter and its measurement_error (README)"
+        )
+    tuned = None
+    if args.gain or args.gain_file:
+        given = _gain_sets(case, args.gain, args.gain_file)
+        if len(given) != 1:
+            raise CaseError(f"give one gain set to tune a scheduled gain from, got {len(given)}")
+        tuned = given[0]
+    sc = run_schedule_study(case, tuned=tuned, evaluations=args.evaluations or 300, progress=progress)
+    if args.json:
+        import types
+
+        _emit(dumps({"scheduling": _schedule_for_json(types.SimpleNamespace(case=case, schedule=sc))}))
+    else:
+        _emit(schedule_text(sc, case))
+    return 0
+
+
 def _sensitivity(args: argparse.Namespace, progress) -> int:
     from robust.analysis.metrics import METRICS
     from robust.analysis.sensitivity import sobol_indices
@@ -519,6 +547,20 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--quiet", action="store_true", help="no progress messages")
     p.add_argument("--json", action="store_true", help="print JSON instead of text")
     p.set_defaults(func=_front)
+
+    p = sub.add_parser(
+        "schedule",
+        help="what measuring the payload buys: fixed gains beside gains scheduled on the measurement ([schedule])",
+    )
+    _gain_options(
+        p,
+        case_help="case gain set to tune a scheduled gain from as well (at most one)",
+        file_help="gain file to tune a scheduled gain from as well",
+    )
+    p.add_argument("--evaluations", type=_positive_int, help="scheduled tuning's optimiser evaluations (default 300)")
+    p.add_argument("--quiet", action="store_true", help="no progress messages")
+    p.add_argument("--json", action="store_true", help="print JSON instead of text")
+    p.set_defaults(func=_schedule)
 
     p = sub.add_parser(
         "campaign",

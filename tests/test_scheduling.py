@@ -201,3 +201,27 @@ def test_scheduled_tuning_starts_from_the_fixed_gain_and_scores_it_per_model(sma
     again = _score(scorer.margins(out["gain"].at(measured)))
     assert again == pytest.approx(out["score"], rel=1e-9, abs=1e-12)
     assert out["score"] >= out["start_score"]
+
+
+def test_schedule_command_prints_the_comparison_within_100_columns(tmp_path, capsys):
+    """`robust schedule`: the comparison on a screen (at most 100 columns), JSON on request, exit 2 and the
+    table's name when the case has no [schedule]."""
+    import json
+
+    from robust.cli import main
+
+    plain = tmp_path / "plain.toml"
+    plain.write_text(SMALL_TEXT, encoding="utf-8")
+    assert main(["schedule", str(plain), "--quiet"]) == 2
+    assert "[schedule]" in capsys.readouterr().err
+    case = tmp_path / "sched.toml"
+    case.write_text(SMALL_TEXT + '\n[schedule]\nparameter = "payload.mass_kg"\nmeasurement_error = 1.0\n', "utf-8")
+    assert main(["schedule", str(case), "--gain", "placed", "--evaluations", "20", "--quiet"]) == 0
+    out = capsys.readouterr().out
+    assert "certified decay rate (LMI) [1/s]" in out and "scheduled_tuned" in out
+    assert max(len(line) for line in out.splitlines()) <= 100
+    assert main(["schedule", str(case), "--quiet", "--json"]) == 0
+    data = json.loads(capsys.readouterr().out)["scheduling"]
+    assert data["gains_compared"] == ["best_fixed", "scheduled"]
+    rates = data["certified_decay_rate_per_s"]
+    assert rates["scheduled"] >= 0.97 * rates["best_fixed"] > 0

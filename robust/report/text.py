@@ -753,3 +753,64 @@ def subset_text(r, gain: str, manoeuvre: str) -> str:
         "  An estimate with a coefficient of variation, not a confidence bound: for a demonstration, run the campaign."
     )
     return "\n".join(lines) + "\n"
+
+
+SHORT_QUANTITIES = {
+    "certified decay rate (LMI, every model of the box)": "certified decay rate (LMI)",
+    "runs that fell": "runs that fell",
+}
+
+
+def schedule_text(sc, case) -> str:
+    """The schedule study on a screen: the compared gains two at a time (at most 100 columns)."""
+    from robust.report.dossier import schedule_rows
+    from robust.vehicle import PARAMETERS
+
+    s = sc.schedule
+    unit = PARAMETERS[s.parameter].unit
+    rows = schedule_rows(sc, case.requirements)
+    names = list(sc.columns)
+    import textwrap
+
+    def wrap(text: str) -> list[str]:
+        return textwrap.wrap(text, 98, initial_indent="  ", subsequent_indent="    ")
+
+    lines = [
+        f"What measuring the {PARAMETERS[s.parameter].text} buys: K = K0 + (measured - {s.nominal:g} {unit}) K1, "
+        f"measured within +-{s.error:g} {unit}",
+        *wrap(f"LMI pair: largest certified decay rate on the rigorous polytope ({', '.join(sc.imposed) or 'decay'})"),
+    ]
+    if sc.tuned is not None:
+        lines += wrap(
+            f"tuned pair: '{sc.tuned.name}' and a scheduled gain tuned from it ({sc.scenario_models} scenarios)"
+        )
+    for name, why in sc.errors.items():
+        lines += wrap(f"{name}: {why}")
+    for k in range(0, len(names), 2):
+        pair = names[k : k + 2]
+        body = []
+        for r in rows:
+            q = SHORT_QUANTITIES.get(r["quantity"], r["quantity"].replace(" (worst sampled)", ""))
+            q = q.replace(" over the manoeuvres", " (manoeuvres)")
+            if q.startswith("smallest normalised"):
+                q = "smallest margin, tuning scenarios"
+            cells = [f"{q} [{r['unit']}]", "-" if r["bound"] is None else fmt(r["bound"])]
+            for j in range(k, k + len(pair)):
+                v, ok = r["values"][j], r["meets"][j]
+                if v is None:
+                    cells.append("NOT certified" if names[j] in sc.errors and "certified" in q else "-")
+                else:
+                    cells.append(value_text(v) + ("" if ok is None else ("" if ok else " FAIL")))
+            body.append(cells)
+        lines += ["", table(["quantity", "bound", *pair], body).rstrip("\n")]
+    lines.append("")
+    lines += wrap(
+        "The certified rates are LMI certificates re-checked with numpy; every other row is the worst on "
+        f"{sc.linear_models} models (box x measurement error) or on {sc.time_models} runs per gain (corners at "
+        "both extreme errors): sampled, not certified. No overall verdict: the dossier gives the tuned gain's."
+    )
+    for g in (sc.scheduled, sc.tuned_scheduled):
+        if g is not None:
+            lines.append(f"  {g.name}: K0 left row {', '.join(fmt(x, 5) for x in g.K0[0])}")
+            lines.append(f"  {' ' * len(g.name)}  K1 left row {', '.join(fmt(x, 5) for x in g.K1[0])} per {unit}")
+    return "\n".join(lines) + "\n"
