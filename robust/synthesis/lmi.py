@@ -23,6 +23,15 @@ Parameter-dependent Lyapunov matrix (``E = I`` only)
     ``A_cl X_i + X_i A_cl^T < 0`` with a vertex-dependent ``X_i``: less
     conservative, valid for constant parameters.  ``eps`` is searched on a grid.
 
+Gain scheduled on a measured parameter (common Lyapunov matrix, ``moment_box`` with a schedule)
+    ``K(d) = K0 + d K1`` with ``d`` the measured value minus its nominal: ``Y_i = Y + t_i Y1`` at
+    vertex ``i`` (``t = d / max|d|``), ``K0 = Y X1^-1``, ``K1 = Y1 X1^-1 / max|d|``.  The vertex LMIs
+    are affine in ``(q, d, k d)``, the coordinates the scheduled polytope's vertices span (see
+    :func:`robust.synthesis.polytope.moment_box`), so they cover every model at every measurement
+    error; constraints on the gain alone hold at both extreme ``t``.  Affine parameter-dependent state
+    feedback with a common Lyapunov matrix (Boyd, El Ghaoui, Feron and Balakrishnan 1994, ch. 5, the
+    bilinear ``k d`` lifted to a coordinate of its own).
+
 Numerical care: states and inputs are scaled (``x = D x~``, ``u = s u~``);
 strict inequalities hold with a margin ``delta`` and bounded ``X``; there is
 always an objective; every LMI is symmetric by construction; the returned
