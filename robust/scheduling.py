@@ -92,7 +92,8 @@ class ScheduleComparison:
     @property
     def columns(self) -> tuple[str, ...]:
         """The gains compared, in the order of the dossier's columns (LMI pair, then tuned pair)."""
-        out = [FIXED_NAME, self.scheduled.name if self.scheduled is not None else None]
+        # the LMI pair always (a gain whose synthesis failed keeps its column: "not certified"), then the tuned pair
+        out = list(self.vertices)
         if self.tuned is not None:
             out += [self.tuned.name, self.tuned_scheduled.name if self.tuned_scheduled is not None else None]
         return tuple(n for n in out if n is not None)

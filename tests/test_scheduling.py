@@ -225,3 +225,24 @@ def test_schedule_command_prints_the_comparison_within_100_columns(tmp_path, cap
     assert data["gains_compared"] == ["best_fixed", "scheduled"]
     rates = data["certified_decay_rate_per_s"]
     assert rates["scheduled"] >= 0.97 * rates["best_fixed"] > 0
+
+
+def test_a_failed_synthesis_keeps_its_column_and_says_why(monkeypatch):
+    """When neither LMI gain can be synthesized, both keep their columns with no value, the reasons are
+    recorded, and nothing is evaluated for them (no row claims a value it does not have).  The failure is
+    injected (a real infeasible request spends minutes proving it)."""
+    import robust.scheduling as S
+    from robust.report.dossier import schedule_rows
+    from robust.synthesis.lmi import Infeasible
+
+    def refuse(*_a, **_k):
+        raise Infeasible("test: not certifiable")
+
+    monkeypatch.setattr(S, "synthesize", refuse)
+    case = parse_case(SMALL_TEXT + '\n[schedule]\nparameter = "payload.mass_kg"\nmeasurement_error = 0.5\n')
+    sc = S.run_schedule_study(case, samples=50)
+    assert sc.columns == ("best_fixed", "scheduled")
+    assert sc.errors == {"best_fixed": "test: not certifiable", "scheduled": "test: not certifiable"}
+    assert sc.fixed is None and sc.scheduled is None
+    for r in schedule_rows(sc, case.requirements):
+        assert r["values"] == [None, None] and r["meets"] == [None, None]
