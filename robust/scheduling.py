@@ -9,7 +9,10 @@ largest certified decay rate):
   and its product with the torque-constant ratio as further vertex coordinates (the measurement off
   by at most the case's error; see :func:`robust.synthesis.polytope.moment_box`).
 
-Both are then evaluated on the same models: Monte Carlo samples of the box with a measurement error
+With the dossier's tuned gain, a scheduled gain is also tuned from it (:func:`robust.synthesis.tuning.
+tune_scheduled`), and both get a fixed-gain LMI certificate on the same two polytopes.
+
+All are then evaluated on the same models: Monte Carlo samples of the box with a measurement error
 drawn uniformly within its bound (the corners with both extreme errors first) for the linear metrics,
 and the corners with both extreme errors for the case's manoeuvres on the nonlinear model.  A
 computational module: it returns results, never prints or writes.
@@ -37,7 +40,7 @@ OVERRIDES = {"objective": "decay", "route": "moment_box", "lyapunov": "common", 
 
 @dataclass(frozen=True)
 class ScheduleComparison:
-    """The best fixed gain and the scheduled gain, side by side.
+    """The best fixed gain and the scheduled gain (and the tuned pair), side by side.
 
     Attributes
     ----------
@@ -55,7 +58,8 @@ class ScheduleComparison:
     not_imposed
         Requested constraints the LMIs could not carry, with the reason.
     linear
-        Per gain name, the worst value of every linear metric over the models (box x error). [SI]
+        Per gain name, the worst value of every linear metric over the models (box x error), in the
+        metric's display unit (``METRICS[name].unit``: dB, deg, ms where it says so).
     linear_models
         How many models the linear comparison covers.
     time
