@@ -180,7 +180,7 @@ def run_schedule_study(
     spec, not_imposed = make_spec(case, {**OVERRIDES, **case.schedule.get("constraints", {})})
     say = progress
     if say is not None:
-        say("schedule study: the rigorous polytope with and without the measured payload mass")
+        say("schedule study: the rigorous polytope with and without the measured value")
     polys = {fixed_name: moment_box(case.box), name: moment_box(case.box, schedule=sched)}
     results: dict[str, SynthesisResult] = {}
     errors: dict[str, str] = {}

@@ -246,3 +246,44 @@ def test_a_failed_synthesis_keeps_its_column_and_says_why(monkeypatch):
     assert sc.fixed is None and sc.scheduled is None
     for r in schedule_rows(sc, case.requirements):
         assert r["values"] == [None, None] and r["meets"] == [None, None]
+
+
+HEIGHT = Schedule("payload.cg_height_m", 0.35, 0.02)  # measured within 2 cm
+
+
+def test_a_gain_scheduled_on_the_payload_height_is_contained_and_certified():
+    """Scheduling on the centre-of-mass height: the payload group's vertices carry their height, ``(m, m u,
+    m v, u)``; every model's ``(q, d, k d)`` is inside the vertices' hull (linprog), and the scheduled LMI
+    gain's certified rate holds for every sampled model at every measurement error (numpy eigenvalues,
+    Lyapunov's theorem) and is at least the fixed gain's (its problem contains the fixed one)."""
+    text = SMALL_TEXT.replace(
+        "[ranges.drive.torque_constant_n_m_per_a]",
+        "[ranges.payload.cg_height_m]\nlow = 0.3\nhigh = 0.45\n\n[ranges.drive.torque_constant_n_m_per_a]",
+        1,
+    )
+    box = parse_case(text).box
+    S = moment_box(box, schedule=HEIGHT)
+    r = box.vehicle.wheel.radius_m
+    q = _coordinates(S.E, S.A, S.B, r)
+    V = np.column_stack([q, S.schedule, q[:, 4] * S.schedule])
+    rng = np.random.default_rng(4)
+    pts = np.concatenate([corners(box), monte_carlo(box, 150, seed=4)])
+    err = rng.uniform(-HEIGHT.error, HEIGHT.error, len(pts))
+    err[: len(corners(box))] = HEIGHT.error
+    plant = box.plant(pts)
+    d = pts[:, box.names.index("payload.cg_height_m")] + err - HEIGHT.nominal
+    qm = np.stack([plant.m11, plant.I3 + plant.yaw_wheels, plant.m33, plant.Ml, plant.kt_ratio, plant.c_b], 1)
+    P = np.column_stack([qm, d, plant.kt_ratio * d])
+    scale = np.maximum(np.abs(V).max(axis=0), 1e-12)
+    A_eq = np.vstack([(V / scale).T, np.ones((1, V.shape[0]))])
+    for p in P:
+        res = linprog(np.zeros(V.shape[0]), A_eq=A_eq, b_eq=np.append(p / scale, 1.0), bounds=(0, None))
+        assert res.status == 0, f"model {p} outside the height-scheduled polytope"
+    spec = Spec(decay_rate=0.0, damping=0.3, objective="decay", input_scale=20.0)
+    fixed = synthesize(moment_box(box), spec)
+    sched = synthesize(S, replace(spec, scheduled=True))
+    assert sched.decay_rate >= 0.97 * fixed.decay_rate
+    g = ScheduledGain("h", sched.K, sched.K1, HEIGHT, "lmi")
+    model = reduced_model(plant)
+    lam = eigenvalues_4x4(model.A - model.B @ g.at(pts[:, box.names.index("payload.cg_height_m")] + err))
+    assert float(-lam.real.max()) >= sched.decay_rate * (1 - 1e-9)

@@ -292,7 +292,7 @@ def _ranged(box: Box, name: str) -> bool:
     return any(r.name == name for r in box.ranges)
 
 
-def _mass_height_vertices(m: tuple[float, float], h: tuple[float, float]) -> np.ndarray:
+def _mass_height_vertices(m: tuple[float, float], h: tuple[float, float], *, with_height: bool = False) -> np.ndarray:
     """Vertices ``(m, m h, m h^2)`` of a polytope containing the image of a mass x height box.
 
     For a fixed mass the curve ``(h, h^2)`` lies in the triangle of its end
@@ -305,6 +305,8 @@ def _mass_height_vertices(m: tuple[float, float], h: tuple[float, float]) -> np.
     if h1 != h2:
         tri.append((0.5 * (h1 + h2), h1 * h2))
     masses = sorted({m[0], m[1]})
+    if with_height:  # the height itself as a fourth coordinate (a gain scheduled on it): (m, m u, m v, u)
+        return np.array([(mm, mm * hh, mm * yy, hh) for mm in masses for hh, yy in tri])
     return np.array([(mm, mm * hh, mm * yy) for mm in masses for hh, yy in tri])
 
 
@@ -314,7 +316,7 @@ def moment_intervals(box: Box) -> dict[str, tuple[float, float]]:
     return {n: tuple(P.facts["moment_intervals"][n]) for n in MOMENT_NAMES}
 
 
-SCHEDULABLE = ("payload.mass_kg",)
+SCHEDULABLE = ("payload.mass_kg", "payload.cg_height_m")
 
 
 def moment_box(box: Box, *, schedule=None) -> Polytope:
@@ -327,15 +329,19 @@ def moment_box(box: Box, *, schedule=None) -> Polytope:
     intervals), and the vertices of the product polytope are mapped to
     ``(E, A, B)``.
 
-    With a ``schedule`` (:class:`robust.gains.Schedule` on the payload mass) the
-    gain is ``K0 + d K1`` with ``d`` the measured payload mass minus its nominal,
+    With a ``schedule`` (:class:`robust.gains.Schedule` on the payload mass or its
+    centre-of-mass height) the gain is ``K0 + d K1`` with ``d`` the measured value minus its nominal,
     the measurement off by at most the schedule's error.  The vertex LMIs then
     contain ``B K = k B0 (K0 + d K1)``: affine in ``(q, d, w)`` with ``w = k d``.
     The product polytope gets one more group (the measurement error, two values)
     and every vertex carries ``d`` (the payload mass of its vertex plus its error,
-    minus the nominal) and ``w``; the points ``(q, d, w)`` of the product vertices
-    contain every model's ``(q, d, k d)`` (for a fixed vertex of the other groups,
-    ``(k, k d)`` is linear in ``k``), and the reduction to hull vertices is done in
+    minus the nominal) and ``w``; on the height, the payload group's vertices carry
+    their height ``u`` as a fourth coordinate, ``(m, m u, m v, u)`` (multi-affine in
+    the mass and the triangle's point, so the vertices' images contain every
+    ``(m, m h, m h^2, h)``), and ``d`` is that height plus the error minus the
+    nominal.  The points ``(q, d, w)`` of the product vertices contain every
+    model's ``(q, d, k d)`` (for a fixed vertex of the other groups, ``(k, k d)``
+    is linear in ``k``), and the reduction to hull vertices is done in
     ``(q, d, w)``, so a vertex LMI affine in those holds on the whole box.  The
     returned polytope's ``schedule`` holds ``d`` per vertex and ``fixed`` the
     polytope of a gain that ignores the measurement (the same vertices reduced in
@@ -361,9 +367,13 @@ def moment_box(box: Box, *, schedule=None) -> Polytope:
 
     groups: list[np.ndarray] = []  # each: (vertices, columns) in the order of `cols`
     cols: list[str] = []
+    on_height = schedule is not None and schedule.parameter == "payload.cg_height_m"
     for body in ("chassis", "payload"):
-        groups.append(_mass_height_vertices(bounds(f"{body}.mass_kg"), bounds(f"{body}.cg_height_m")))
-        cols += [f"{body}.m", f"{body}.mh", f"{body}.mh2"]
+        h_col = on_height and body == "payload"
+        groups.append(
+            _mass_height_vertices(bounds(f"{body}.mass_kg"), bounds(f"{body}.cg_height_m"), with_height=h_col)
+        )
+        cols += [f"{body}.m", f"{body}.mh", f"{body}.mh2"] + ([f"{body}.h"] if h_col else [])
     # inertia terms about the body's own centre of mass: chassis as given; payload scales with its mass
     mp0 = v.payload.mass_kg
     for axis in ("pitch", "yaw"):
@@ -422,7 +432,8 @@ def moment_box(box: Box, *, schedule=None) -> Polytope:
     m22 = 2 * mw * d**2 + 2 * Jw * d**2 / r**2 + 2 * Kw + inertia("yaw")
     q = np.stack([m11, m22, m33, Ml, col["k"], col["c_b"]], axis=1)
     if schedule is not None:
-        d = col["payload.m"] + col["error"] - float(schedule.nominal)
+        measured = col["payload.h"] if on_height else col["payload.m"]
+        d = measured + col["error"] - float(schedule.nominal)
         qdw = np.unique(np.round(np.column_stack([q, d, col["k"] * d]), 12), axis=0)
         kept = hull_vertices(qdw)
         fixed = moment_box(box)
