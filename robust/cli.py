@@ -311,6 +311,22 @@ def _schedule(args: argparse.Namespace, progress) -> int:
         if len(given) != 1:
             raise CaseError(f"give one gain set to tune a scheduled gain from, got {len(given)}")
         tuned = given[0]
+    elif case.tuning and not args.no_tuning:
+        # as the dossier does: the case's tuned gain, then the scheduled gain tuned from it
+        from robust.case import resolve_gain
+        from robust.synthesis.tuning import tune
+
+        starts = [resolve_gain(case, g) for g in case.gains]
+        starts = [g for g in starts if not case.tuning["starts"] or g.name in case.tuning["starts"]]
+        progress("robust tuning")
+        tuned = tune(
+            case,
+            starts,
+            name=case.tuning["name"],
+            outer_iterations=case.tuning["rounds"],
+            evaluations=case.tuning["evaluations"],
+            progress=progress,
+        ).gain
     sc = run_schedule_study(case, tuned=tuned, evaluations=args.evaluations or 300, progress=progress)
     if args.json:
         import types
@@ -558,6 +574,9 @@ def build_parser() -> argparse.ArgumentParser:
         file_help="gain file to tune a scheduled gain from as well",
     )
     p.add_argument("--evaluations", type=_positive_int, help="scheduled tuning's optimiser evaluations (default 300)")
+    p.add_argument(
+        "--no-tuning", action="store_true", help="without --gain: leave out the tuned pair the case's [tuning] asks for"
+    )
     p.add_argument("--quiet", action="store_true", help="no progress messages")
     p.add_argument("--json", action="store_true", help="print JSON instead of text")
     p.set_defaults(func=_schedule)

@@ -287,3 +287,19 @@ def test_a_gain_scheduled_on_the_payload_height_is_contained_and_certified():
     model = reduced_model(plant)
     lam = eigenvalues_4x4(model.A - model.B @ g.at(pts[:, box.names.index("payload.cg_height_m")] + err))
     assert float(-lam.real.max()) >= sched.decay_rate * (1 - 1e-9)
+
+
+def test_schedule_command_tunes_first_when_the_case_asks_for_tuning(tmp_path, capsys):
+    """Without --gain, `robust schedule` tunes the gain the case's [tuning] asks for (as the dossier does)
+    and sets the scheduled gain tuned from it beside it; --no-tuning leaves the pair out."""
+    from robust.cli import main
+
+    case = tmp_path / "tuned.toml"
+    extra = "\n[tuning]\nrounds = 1\nevaluations = 10\n"
+    extra += '\n[schedule]\nparameter = "payload.mass_kg"\nmeasurement_error = 1.0\n'
+    case.write_text(SMALL_TEXT + extra, "utf-8")
+    assert main(["schedule", str(case), "--evaluations", "10", "--quiet"]) == 0
+    out = capsys.readouterr().out
+    assert "'tuned' and a scheduled gain tuned from it" in out and "scheduled_tuned" in out
+    assert main(["schedule", str(case), "--no-tuning", "--quiet"]) == 0
+    assert "scheduled_tuned" not in capsys.readouterr().out
