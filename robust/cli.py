@@ -295,7 +295,7 @@ def _front(args: argparse.Namespace, progress) -> int:
 
 def _schedule(args: argparse.Namespace, progress) -> int:
     from robust.case import CaseError, load_case
-    from robust.report.dossier import _schedule_for_json
+    from robust.report.dossier import schedule_record
     from robust.report.jsonout import dumps
     from robust.report.text import schedule_text
     from robust.scheduling import run_schedule_study
@@ -314,24 +314,12 @@ def _schedule(args: argparse.Namespace, progress) -> int:
     elif case.tuning and not args.no_tuning:
         # as the dossier does: the case's tuned gain, then the scheduled gain tuned from it
         from robust.case import resolve_gain
-        from robust.synthesis.tuning import tune
+        from robust.synthesis.tuning import tune_as_asked
 
-        starts = [resolve_gain(case, g) for g in case.gains]
-        starts = [g for g in starts if not case.tuning["starts"] or g.name in case.tuning["starts"]]
-        progress("robust tuning")
-        tuned = tune(
-            case,
-            starts,
-            name=case.tuning["name"],
-            outer_iterations=case.tuning["rounds"],
-            evaluations=case.tuning["evaluations"],
-            progress=progress,
-        ).gain
+        tuned = tune_as_asked(case, [resolve_gain(case, g) for g in case.gains], progress=progress).gain
     sc = run_schedule_study(case, tuned=tuned, evaluations=args.evaluations or 300, progress=progress)
     if args.json:
-        import types
-
-        _emit(dumps({"scheduling": _schedule_for_json(types.SimpleNamespace(case=case, schedule=sc))}))
+        _emit(dumps({"scheduling": schedule_record(sc, case.requirements)}))
     else:
         _emit(schedule_text(sc, case))
     return 0

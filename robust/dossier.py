@@ -142,18 +142,9 @@ def run_dossier(
             design_error = str(exc)
     tuning = None
     if case.tuning and case.box.ranges:
-        from robust.synthesis.tuning import tune
+        from robust.synthesis.tuning import tune_as_asked
 
-        starts = [g for g in gains if not case.tuning["starts"] or g.name in case.tuning["starts"]]
-        say("robust tuning")
-        tuning = tune(
-            case,
-            starts,
-            name=case.tuning["name"],
-            outer_iterations=case.tuning["rounds"],
-            evaluations=case.tuning["evaluations"],
-            progress=progress,
-        )
+        tuning = tune_as_asked(case, gains, progress=say)
         gains = [tuning.gain, *gains]
     front = None
     if tuning is not None and case.front:

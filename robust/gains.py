@@ -59,19 +59,26 @@ def _toml_value(v: Any) -> str:
     raise TypeError(f"cannot write {type(v).__name__} to a gain file")
 
 
+def _gain_lines(table: str, name: str, origin: str, matrices: dict[str, np.ndarray]) -> list[str]:
+    """The table header, name, origin, states, inputs and each named 2 x 4 matrix of a gain file."""
+    lines = [
+        f"[{table}]",
+        f"name = {_toml_value(name)}",
+        f"origin = {_toml_value(origin)}",
+        f"states = {_toml_value(list(REDUCED_STATES))}",
+        f"inputs = {_toml_value(list(INPUTS))}",
+    ]
+    for key, M in matrices.items():
+        lines += [f"{key} = [", *(f"  {_toml_value(row)}," for row in np.asarray(M).tolist()), "]"]
+    return lines
+
+
 def gain_file_text(gain: GainSet) -> str:
     """TOML text of a gain file."""
     lines = [
         "# Gain set: u = -K (x - x_ref); x = (speed, yaw_rate, pitch, pitch_rate) [SI];",
         "# u = (torque_left, torque_right) [N m].",
-        "[gain]",
-        f"name = {_toml_value(gain.name)}",
-        f"origin = {_toml_value(gain.origin)}",
-        f"states = {_toml_value(list(REDUCED_STATES))}",
-        f"inputs = {_toml_value(list(INPUTS))}",
-        "matrix = [",
-        *(f"  {_toml_value(row)}," for row in gain.K.tolist()),
-        "]",
+        *_gain_lines("gain", gain.name, gain.origin, {"matrix": gain.K}),
         "",
         "[gain.provenance]",
     ]
@@ -216,17 +223,7 @@ def scheduled_gain_file_text(gain: ScheduledGain) -> str:
         "# Scheduled gain: u = -(K0 + (p_measured - nominal) K1) (x - x_ref);",
         "# x = (speed, yaw_rate, pitch, pitch_rate) [SI]; u = (torque_left, torque_right) [N m];",
         "# K1 per unit of the measured parameter.",
-        "[scheduled_gain]",
-        f"name = {_toml_value(gain.name)}",
-        f"origin = {_toml_value(gain.origin)}",
-        f"states = {_toml_value(list(REDUCED_STATES))}",
-        f"inputs = {_toml_value(list(INPUTS))}",
-        "matrix = [",
-        *(f"  {_toml_value(row)}," for row in gain.K0.tolist()),
-        "]",
-        "slope = [",
-        *(f"  {_toml_value(row)}," for row in gain.K1.tolist()),
-        "]",
+        *_gain_lines("scheduled_gain", gain.name, gain.origin, {"matrix": gain.K0, "slope": gain.K1}),
         "",
         "[scheduled_gain.schedule]",
         f"parameter = {_toml_value(s.parameter)}",

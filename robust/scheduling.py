@@ -68,7 +68,14 @@ class ScheduleComparison:
     time_models
         How many rows (models x manoeuvres) the time-domain comparison covers.
     errors
-        Per gain name, why it could not be synthesized.
+        Per gain name, why it could not be synthesized (or certified, for the tuned pair).
+    solves
+        LMI solves of each synthesis.
+    seed
+        The case's study seed, which seeds the comparison's samples and errors.
+    tuned, tuned_scheduled, scores, scenario_models
+        With a tuned gain: it, the scheduled gain tuned from it, both scores (smallest normalised margin)
+        on the tuning scenarios, and how many scenario models there are.
     seconds
         Wall time of the study. [s]
     """

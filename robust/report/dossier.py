@@ -1385,7 +1385,9 @@ def _write_files(d, target: FolderTarget, blocks, figs, today: str) -> None:
             "tuning": _tuning_for_json(getattr(d, "tuning", None)),
             "front": getattr(d, "front", None),
             "tolerances": getattr(d, "tolerances", None),
-            "scheduling": _schedule_for_json(d),
+            "scheduling": None
+            if getattr(d, "schedule", None) is None
+            else schedule_record(d.schedule, d.case.requirements),
             "campaigns": list(getattr(d, "campaigns", ())),
             "sampled_loop": {
                 "margins": getattr(d, "sampled_margins", None),
@@ -1398,12 +1400,10 @@ def _write_files(d, target: FolderTarget, blocks, figs, today: str) -> None:
         (tmp / "COMPLETE").write_text(f"dossier complete; generated {today}\n", encoding="utf-8")
 
 
-def _schedule_for_json(d):
-    """The schedule study for results.json: the gains, the schedule, and one record per compared quantity
-    (``to_si`` turns the degree and millisecond records into radians and seconds)."""
-    sc = getattr(d, "schedule", None)
-    if sc is None:
-        return None
+def schedule_record(sc, requirements: dict) -> dict:
+    """The schedule study for results.json and ``robust schedule --json``: the gains, the schedule, and one
+    record per compared quantity (``to_si`` turns the degree and millisecond records into radians and
+    seconds)."""
     g = sc.scheduled
     return {
         "schedule": {
@@ -1435,7 +1435,7 @@ def _schedule_for_json(d):
                 "values": r["values"],
                 "meets": r["meets"],
             }
-            for r in schedule_rows(sc, d.case.requirements)
+            for r in schedule_rows(sc, requirements)
         ],
         "gains_compared": list(sc.columns),
     }

@@ -277,6 +277,22 @@ def tune(
     )
 
 
+def tune_as_asked(case: Case, gains: list[GainSet], *, progress: Callable[[str], None] | None = None) -> TuningResult:
+    """The tuning the case's ``[tuning]`` asks for, from those of ``gains`` it names as starts (all when it
+    names none): what the dossier and ``robust schedule`` run."""
+    starts = [g for g in gains if not case.tuning["starts"] or g.name in case.tuning["starts"]]
+    if progress is not None:
+        progress("robust tuning")
+    return tune(
+        case,
+        starts,
+        name=case.tuning["name"],
+        outer_iterations=case.tuning["rounds"],
+        evaluations=case.tuning["evaluations"],
+        progress=progress,
+    )
+
+
 def scheduled_scenarios(case: Case) -> tuple[np.ndarray, np.ndarray]:
     """The scheduled tuning's scenarios: the box corners at both extreme measurement errors
     ``(points, errors)``."""
