@@ -486,7 +486,10 @@ def _schedule(doc: dict, vehicle: Vehicle, ranges) -> dict:
             f"{nominal:g}"
         )
     names = set(_table(doc, "gains", "", required=False))
-    names |= {doc.get("synthesis", {}).get("name", "robust_lmi"), doc.get("tuning", {}).get("name", "tuned")}
+    if "synthesis" in doc:  # the LMI gain's name (default as in design.design)
+        names.add(doc["synthesis"].get("name", "lmi"))
+    if "tuning" in doc:
+        names.add(doc["tuning"].get("name", "tuned"))
     if name in names or name == FIXED_NAME:
         raise CaseError(f"'schedule.name': {name!r} is already the name of a gain set; choose another")
     if f"{name}_tuned" in names:

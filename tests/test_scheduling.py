@@ -153,6 +153,7 @@ SMALL_TEXT = (DATA / "small_cart.toml").read_text(encoding="utf-8")
         ('parameter = "payload.mass_kg"\nmeasurement_error = 11.0', "schedule.measurement_error"),
         ('parameter = "payload.mass_kg"\nmeasurement_error = 1.0\nnominal = 12.0', "schedule.nominal"),
         ('parameter = "payload.mass_kg"\nmeasurement_error = 1.0\nname = "placed"', "schedule.name"),
+        ('parameter = "payload.mass_kg"\nmeasurement_error = 1.0\nname = "lmi"', "schedule.name"),  # [synthesis]'s
         ('parameter = "payload.mass_kg"\nmeasurement_error = 1.0\ntorque_limit_n_m = 5.0', "torque_limit_n_m"),
         ('parameter = "payload.mass_kg"\nmeasurement_error = 1.0\nspeed_step_m_s = 1.0', "speed_step_m_s"),
         ("measurement_error = 1.0", "schedule.parameter"),
