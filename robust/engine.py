@@ -80,65 +80,66 @@ RECORD_COLUMNS = 17  # state (7), command (2), torque (2), current (2), vref, wr
 
 
 @numba.njit(cache=True, inline="always")
-def _drive(P, cmd, spin):
-    """Clipped current, ``lo``, ``hi`` and the voltage-limited bounds for one wheel."""
-    wanted = cmd / P[P_KTN]
-    v_hi = (P[P_V] - P[P_KE] * spin) / P[P_RES]
-    v_lo = (-P[P_V] - P[P_KE] * spin) / P[P_RES]
+def _drive(P, wanted, spin, inv_res):
+    """Clipped current, ``lo``, ``hi`` and the voltage-limited bounds for one wheel wanting current ``wanted``."""
+    v_hi = (P[P_V] - P[P_KE] * spin) * inv_res
+    v_lo = (-P[P_V] - P[P_KE] * spin) * inv_res
     lo = min(max(-P[P_IMAX], v_lo), v_hi)
     hi = min(max(P[P_IMAX], v_lo), v_hi)
     current = min(max(wanted, lo), hi)
-    return wanted, current, lo, hi, v_lo, v_hi
+    return current, lo, hi, v_lo, v_hi
 
 
 @numba.njit(cache=True, inline="always")
-def _deriv(P, x, tl, tr, pf, ph, live, out):
-    """Time derivative of the 7-state vector (same arithmetic as :func:`robust.dynamics.accelerations`)."""
-    v, w, p, q = x[3], x[4], x[5], x[6]
-    r, d, cb, Ml, l = P[P_R], P[P_D], P[P_CB], P[P_ML], P[P_L]
-    rel_l = (v - d * w) / r - q
-    rel_r = (v + d * w) / r - q
+def _accel(P, v, w, p, q, tl, tr, pf, ph, live, inv_r):
+    """``(dv, dw, dp, dq)`` at one state (same arithmetic as :func:`robust.dynamics.accelerations`).
+
+    The state lives in scalars, not arrays, so the compiler keeps it in registers.
+    """
+    d, cb, Ml, l = P[P_D], P[P_CB], P[P_ML], P[P_L]
+    rel_l = (v - d * w) * inv_r - q
+    rel_r = (v + d * w) * inv_r - q
     net_l = tl - cb * rel_l
     net_r = tr - cb * rel_r
     S = net_l + net_r
     D = net_r - net_l
     s = math.sin(p)
-    c = math.cos(p)
+    # cos from sin where the sign is known (|p| < 1.5 < pi/2): a square root is cheaper than a cosine
+    c = math.sqrt(1.0 - s * s) if abs(p) < 1.5 else math.cos(p)
     s2 = s * s
     m22 = (P[P_I1] + Ml * l) * s2 + P[P_I3] * (1.0 - s2) + P[P_YW]
     w2 = w * w
-    f1 = S / r + Ml * s * (q * q + w2)
+    f1 = S * inv_r + Ml * s * (q * q + w2)
     f3 = Ml * P[P_G] * s - S - (P[P_I3] - P[P_I1] - Ml * l) * s * c * w2
     f1 = f1 + pf
     f3 = f3 + pf * ph * c
     Mlc = Ml * c
     det = P[P_M11] * P[P_M33] - Mlc * Mlc
-    dv = (P[P_M33] * f1 - Mlc * f3) / det
-    ddp = (P[P_M11] * f3 - Mlc * f1) / det
-    dw = (d * D / r - 2.0 * (P[P_I1] - P[P_I3] + Ml * l) * s * c * w * q - Ml * s * v * w) / m22
-    hd = x[2]
-    out[0] = v * math.cos(hd) * live
-    out[1] = v * math.sin(hd) * live
-    out[2] = w * live
-    out[3] = dv * live
-    out[4] = dw * live
-    out[5] = q * live
-    out[6] = ddp * live
+    inv_det = 1.0 / det
+    dv = (P[P_M33] * f1 - Mlc * f3) * inv_det
+    ddp = (P[P_M11] * f3 - Mlc * f1) * inv_det
+    dw = (d * D * inv_r - 2.0 * (P[P_I1] - P[P_I3] + Ml * l) * s * c * w * q - Ml * s * v * w) / m22
+    return dv * live, dw * live, q * live, ddp * live
 
 
 @numba.njit(cache=True, inline="always")
-def _delivered(P, wanted_l, wanted_r, x, out):
-    """Delivered torques for wanted currents at state ``x`` into ``out`` (no bookkeeping)."""
-    r, d = P[P_R], P[P_D]
-    v, w, q = x[3], x[4], x[6]
+def _delivered(P, wanted_l, wanted_r, v, w, q, inv_r, inv_res):
+    """Delivered torques ``(left, right)`` for wanted currents at a state (no bookkeeping)."""
+    d = P[P_D]
+    tl = 0.0
+    tr = 0.0
     for j in range(2):
-        spin = ((v - d * w) if j == 0 else (v + d * w)) / r - q
-        v_hi = (P[P_V] - P[P_KE] * spin) / P[P_RES]
-        v_lo = (-P[P_V] - P[P_KE] * spin) / P[P_RES]
+        spin = ((v - d * w) if j == 0 else (v + d * w)) * inv_r - q
+        v_hi = (P[P_V] - P[P_KE] * spin) * inv_res
+        v_lo = (-P[P_V] - P[P_KE] * spin) * inv_res
         lo = min(max(-P[P_IMAX], v_lo), v_hi)
         hi = min(max(P[P_IMAX], v_lo), v_hi)
         wanted = wanted_l if j == 0 else wanted_r
-        out[j] = P[P_KT] * min(max(wanted, lo), hi)
+        if j == 0:
+            tl = P[P_KT] * min(max(wanted, lo), hi)
+        else:
+            tr = P[P_KT] * min(max(wanted, lo), hi)
+    return tl, tr
 
 
 @numba.njit(cache=True, inline="always")
@@ -167,11 +168,17 @@ def _run_row(P, K, M, T, latency, substeps, fall_angle, o, rec):
     start = M[M_START]
     record = M[M_RECORD] > 0
     stop_at_limit = M[M_STOP] > 0
-    x = np.zeros(7)
-    x[5] = M[M_PITCH0]
+    # the state (position x, y, heading, speed, yaw rate, pitch, pitch rate) in scalars
+    px = 0.0
+    py = 0.0
+    hd = 0.0
+    v = 0.0
+    w = 0.0
+    p = M[M_PITCH0]
+    q = 0.0
     for i in range(OUTPUT_COLUMNS):
         o[i] = 0.0
-    o[10] = abs(x[5])
+    o[10] = abs(p)
     o[13] = math.inf
     for base in (14, 20):
         o[base + 0] = math.inf
@@ -187,16 +194,11 @@ def _run_row(P, K, M, T, latency, substeps, fall_angle, o, rec):
         m1 = substeps
         m2 = 0
         nseg = 1
-    u = np.zeros(2)
-    u_prev = np.zeros(2)
-    k1 = np.empty(7)
-    k2 = np.empty(7)
-    k3 = np.empty(7)
-    k4 = np.empty(7)
-    xs = np.empty(7)
-    tq = np.empty(2)
-    cur = np.empty(2)
-    tau = np.empty(2)
+    u0_prev = u1_prev = 0.0
+    tq0 = tq1 = cur0 = cur1 = 0.0
+    x1 = y1 = x2 = y2 = x3 = y3 = x4 = y4 = 0.0
+    inv_r = 1.0 / P[P_R]
+    inv_res = 1.0 / P[P_RES]
     fell = False
     stopped = False
     for k in range(steps):
@@ -209,33 +211,33 @@ def _run_row(P, K, M, T, latency, substeps, fall_angle, o, rec):
             frac = 1.0
         vref = M[M_V] * frac
         wref = M[M_W] * frac
-        for j in range(2):
-            e0 = x[3] - vref
-            e1 = x[4] - wref
-            u[j] = -(e0 * K[j, 0] + e1 * K[j, 1] + x[5] * K[j, 2] + x[6] * K[j, 3])
+        e0 = v - vref
+        e1 = w - wref
+        u0 = -(e0 * K[0, 0] + e1 * K[0, 1] + p * K[0, 2] + q * K[0, 3])
+        u1 = -(e0 * K[1, 0] + e1 * K[1, 1] + p * K[1, 2] + q * K[1, 3])
         base_t = P[P_TRIM_V] * vref
         turn = P[P_TRIM_W] * wref
-        u[0] += base_t - turn
-        u[1] += base_t + turn
+        u0 += base_t - turn
+        u1 += base_t + turn
         live = not fell and not stopped
         livef = 1.0 if live else 0.0
         if live:
-            o[2] = max(o[2], abs(u[0]))
-            o[3] = max(o[3], abs(u[1]))
-        _response(o, 14, t, x[3], final_v, start, live)
-        _response(o, 20, t, x[4], final_w, start, live)
+            o[2] = max(o[2], abs(u0))
+            o[3] = max(o[3], abs(u1))
+        _response(o, 14, t, v, final_v, start, live)
+        _response(o, 20, t, w, final_w, start, live)
         tt = t
         for seg in range(nseg):
             if nseg == 2:
                 length = latency if seg == 0 else T - latency
                 m = m1 if seg == 0 else m2
-                c0 = u_prev[0] if seg == 0 else u[0]
-                c1 = u_prev[1] if seg == 0 else u[1]
+                c0 = u0_prev if seg == 0 else u0
+                c1 = u1_prev if seg == 0 else u1
             else:
                 length = T
                 m = m1
-                c0 = u[0]
-                c1 = u[1]
+                c0 = u0
+                c1 = u1
             h = length / m
             wl = c0 / P[P_KTN]
             wr = c1 / P[P_KTN]
@@ -246,54 +248,86 @@ def _run_row(P, K, M, T, latency, substeps, fall_angle, o, rec):
                 # measure: drive output at x (peaks, limits)
                 r, d = P[P_R], P[P_D]
                 for j in range(2):
-                    spin = ((x[3] - d * x[4]) if j == 0 else (x[3] + d * x[4])) / r - x[6]
-                    wanted, current, lo, hi, v_lo, v_hi = _drive(P, c0 if j == 0 else c1, spin)
+                    spin = ((v - d * w) if j == 0 else (v + d * w)) * inv_r - q
+                    wanted = wl if j == 0 else wr
+                    current, lo, hi, v_lo, v_hi = _drive(P, wanted, spin, inv_res)
                     limited = current != wanted
                     vlim = limited and ((wanted > hi and hi >= v_hi) or (wanted < lo and lo <= v_lo))
-                    tq[j] = P[P_KT] * current
-                    cur[j] = current
+                    torque = P[P_KT] * current
+                    if j == 0:
+                        tq0, cur0 = torque, current
+                    else:
+                        tq1, cur1 = torque, current
                     if live:
-                        o[0 + j] = max(o[0 + j], abs(tq[j]))
+                        o[0 + j] = max(o[0 + j], abs(torque))
                         o[4 + j] = max(o[4 + j], abs(current))
                         if limited and not vlim:
                             o[6 + j] += 1.0
                         if vlim:
                             o[8 + j] += 1.0
                 if live:
-                    o[10] = max(o[10], abs(x[5]))
-                    o[11] = max(o[11], abs(x[6]))
+                    o[10] = max(o[10], abs(p))
+                    o[11] = max(o[11], abs(q))
                 if record and seg == 0 and sub == 0:
-                    for i in range(7):
-                        rec[k, i] = x[i]
-                    rec[k, 7] = u[0]
-                    rec[k, 8] = u[1]
-                    rec[k, 9] = tq[0]
-                    rec[k, 10] = tq[1]
-                    rec[k, 11] = cur[0]
-                    rec[k, 12] = cur[1]
+                    rec[k, 0] = px
+                    rec[k, 1] = py
+                    rec[k, 2] = hd
+                    rec[k, 3] = v
+                    rec[k, 4] = w
+                    rec[k, 5] = p
+                    rec[k, 6] = q
+                    rec[k, 7] = u0
+                    rec[k, 8] = u1
+                    rec[k, 9] = tq0
+                    rec[k, 10] = tq1
+                    rec[k, 11] = cur0
+                    rec[k, 12] = cur1
                     rec[k, 13] = vref
                     rec[k, 14] = wref
-                    rec[k, 15] = (x[3] - d * x[4]) / r - x[6]
-                    rec[k, 16] = (x[3] + d * x[4]) / r - x[6]
-                _deriv(P, x, tq[0], tq[1], pf, ph, livef, k1)
-                for i in range(7):
-                    xs[i] = x[i] + 0.5 * h * k1[i]
-                _delivered(P, wl, wr, xs, tau)
-                _deriv(P, xs, tau[0], tau[1], pf, ph, livef, k2)
-                for i in range(7):
-                    xs[i] = x[i] + 0.5 * h * k2[i]
-                _delivered(P, wl, wr, xs, tau)
-                _deriv(P, xs, tau[0], tau[1], pf, ph, livef, k3)
-                for i in range(7):
-                    xs[i] = x[i] + h * k3[i]
-                _delivered(P, wl, wr, xs, tau)
-                _deriv(P, xs, tau[0], tau[1], pf, ph, livef, k4)
-                for i in range(7):
-                    x[i] = x[i] + (h / 6.0) * (k1[i] + 2.0 * k2[i] + 2.0 * k3[i] + k4[i])
+                    rec[k, 15] = (v - d * w) / r - q
+                    rec[k, 16] = (v + d * w) / r - q
+                # classical RK4 on (heading, v, w, p, q); the position only where it is recorded
+                a1v, a1w, a1p, a1q = _accel(P, v, w, p, q, tq0, tq1, pf, ph, livef, inv_r)
+                h1 = w * livef
+                hh = 0.5 * h
+                sv, sw, sp, sq = v + hh * a1v, w + hh * a1w, p + hh * a1p, q + hh * a1q
+                s_hd = hd + hh * h1
+                tl, tr = _delivered(P, wl, wr, sv, sw, sq, inv_r, inv_res)
+                a2v, a2w, a2p, a2q = _accel(P, sv, sw, sp, sq, tl, tr, pf, ph, livef, inv_r)
+                h2 = sw * livef
+                if record:
+                    x1 = v * math.cos(hd) * livef
+                    y1 = v * math.sin(hd) * livef
+                    x2 = sv * math.cos(s_hd) * livef
+                    y2 = sv * math.sin(s_hd) * livef
+                sv, sw, sp, sq = v + hh * a2v, w + hh * a2w, p + hh * a2p, q + hh * a2q
+                s_hd = hd + hh * h2
+                tl, tr = _delivered(P, wl, wr, sv, sw, sq, inv_r, inv_res)
+                a3v, a3w, a3p, a3q = _accel(P, sv, sw, sp, sq, tl, tr, pf, ph, livef, inv_r)
+                h3 = sw * livef
+                if record:
+                    x3 = sv * math.cos(s_hd) * livef
+                    y3 = sv * math.sin(s_hd) * livef
+                sv, sw, sp, sq = v + h * a3v, w + h * a3w, p + h * a3p, q + h * a3q
+                s_hd = hd + h * h3
+                tl, tr = _delivered(P, wl, wr, sv, sw, sq, inv_r, inv_res)
+                a4v, a4w, a4p, a4q = _accel(P, sv, sw, sp, sq, tl, tr, pf, ph, livef, inv_r)
+                h4 = sw * livef
+                h6 = h / 6.0
+                if record:
+                    x4 = sv * math.cos(s_hd) * livef
+                    y4 = sv * math.sin(s_hd) * livef
+                    px = px + h6 * (x1 + 2.0 * x2 + 2.0 * x3 + x4)
+                    py = py + h6 * (y1 + 2.0 * y2 + 2.0 * y3 + y4)
+                hd = hd + h6 * (h1 + 2.0 * h2 + 2.0 * h3 + h4)
+                v = v + h6 * (a1v + 2.0 * a2v + 2.0 * a3v + a4v)
+                w = w + h6 * (a1w + 2.0 * a2w + 2.0 * a3w + a4w)
+                p = p + h6 * (a1p + 2.0 * a2p + 2.0 * a3p + a4p)
+                q = q + h6 * (a1q + 2.0 * a2q + 2.0 * a3q + a4q)
                 tt += h
-        u_prev[0] = u[0]
-        u_prev[1] = u[1]
-        if not fell and abs(x[5]) > fall_angle:
+        u0_prev = u0
+        u1_prev = u1
+        if not fell and abs(p) > fall_angle:
             o[13] = (k + 1) * T
             fell = True
         if stop_at_limit and max(o[6], o[7]) > 0:
@@ -301,8 +335,8 @@ def _run_row(P, K, M, T, latency, substeps, fall_angle, o, rec):
         if (fell or stopped) and not record:
             break  # the state is frozen from here on: nothing more can change
     live = not fell and not stopped
-    _response(o, 14, steps * T, x[3], final_v, start, live)
-    _response(o, 20, steps * T, x[4], final_w, start, live)
+    _response(o, 14, steps * T, v, final_v, start, live)
+    _response(o, 20, steps * T, w, final_w, start, live)
     o[12] = 1.0 if fell else 0.0
 
 
@@ -344,18 +378,24 @@ def run_batch(
     if want.any() and record_steps < int(M[want, M_STEPS].max()):
         raise ValueError("record_steps is smaller than the longest recorded manoeuvre")
     t0 = time.perf_counter()
-    _run_batch(
-        np.ascontiguousarray(P, dtype=np.float64),
-        np.ascontiguousarray(K, dtype=np.float64),
-        np.ascontiguousarray(M, dtype=np.float64),
-        float(sample_period_s),
-        float(latency_s),
-        int(substeps),
-        float(fall_angle_rad),
-        out,
-        rec,
-        rec_index,
-    )
+    # rows differ in length (manoeuvre durations, early stops): the threads take them one at a time
+    chunk = numba.get_parallel_chunksize()
+    numba.set_parallel_chunksize(1)
+    try:
+        _run_batch(
+            np.ascontiguousarray(P, dtype=np.float64),
+            np.ascontiguousarray(K, dtype=np.float64),
+            np.ascontiguousarray(M, dtype=np.float64),
+            float(sample_period_s),
+            float(latency_s),
+            int(substeps),
+            float(fall_angle_rad),
+            out,
+            rec,
+            rec_index,
+        )
+    finally:
+        numba.set_parallel_chunksize(chunk)
     if not _LOADED:
         _LOADED = True
         took = time.perf_counter() - t0
