@@ -24,10 +24,15 @@ process reports the time spent loading or compiling it through ``progress``.
 from __future__ import annotations
 
 import math
+import os
 import time
 from collections.abc import Callable
 
 import numpy as np
+
+# idle kernel threads sleep rather than spin between calls, so the cores stay free for the work that runs
+# beside the kernel (figures, LMI solves); read by the OpenMP runtime when the first parallel call loads it
+os.environ.setdefault("OMP_WAIT_POLICY", "PASSIVE")
 
 try:  # numba is a dependency; the import is guarded only so that a broken install gives a clear message
     import numba
