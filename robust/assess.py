@@ -47,18 +47,29 @@ def assess(
     time: bool = True,
     design=None,
     certify: bool = False,
+    check: CheckResult | None = None,
     progress: Callable[[str], None] | None = None,
 ) -> Assessment:
     """Check gain sets over the box (linear and/or time domain) and give each its overall verdict.
 
     With ``certify``, each gain's decay rate is also certified on the rigorous polytope (a common
     Lyapunov matrix for the fixed gain); stability and the decay-rate requirement then carry the
-    evidence "certified" where the certificate reaches them.
+    evidence "certified" where the certificate reaches them.  ``check`` is the linear check of exactly
+    these gain sets with this study when the caller ran it already (the dossier, beside its other
+    stages); it is used instead of running it again.
     """
     if not gains:
         raise ValueError("no gain set to check: add [gains.NAME] to the case or pass a gain file")
     study = study or case.study
-    chk = run_check(case, gains, study=study, progress=progress) if linear else None
+    if check is not None and (
+        [c.gain.name for c in check.gains] != [g.name for g in gains]
+        or check.study != study
+        or check.case_sha256 != case.sha256
+    ):
+        raise ValueError("assess: the given linear check is of other gain sets, another study or another case")
+    if check is not None and not all(np.array_equal(c.gain.K, g.K) for c, g in zip(check.gains, gains)):
+        raise ValueError("assess: the given linear check is of other gain matrices")
+    chk = (check or run_check(case, gains, study=study, progress=progress)) if linear else None
     tm = run_time_check(case, gains, study=study, progress=progress) if time else None
     certificates = certify_gains(case, gains, chk, progress=progress) if certify and chk is not None else None
     verdicts = verdicts_for(

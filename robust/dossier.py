@@ -7,6 +7,7 @@ the per-sample values the figures need.  Writes nothing.
 
 from __future__ import annotations
 
+import contextlib
 import datetime as _dt
 import hashlib
 import importlib.metadata as _md
@@ -24,7 +25,7 @@ from robust.analysis.metrics import evaluate
 from robust.analysis.sampled import sampled_decay_rate
 from robust.assess import assess
 from robust.case import Case, resolve_gain
-from robust.check import CheckResult
+from robust.check import CheckResult, run_check
 from robust.gains import GainSet, gain_file_text
 from robust.linear import reduced_model
 from robust.modelfacts import ModelFacts, model_facts
@@ -122,7 +123,21 @@ def run_dossier(
     ``gain_paths`` are the files ``gain_files`` were read from (kept verbatim in
     the dossier); ``previous`` the results of a previous dossier of the case.
     """
-    say = progress or (lambda _m: None)
+    with contextlib.ExitStack() as beside:
+        return _run(
+            case, beside, gain_files, gain_paths, synthesize, previous, campaigns, progress or (lambda _m: None)
+        )
+
+
+def _run(case: Case, beside, gain_files, gain_paths, synthesize, previous, campaigns, say) -> DossierData:
+    """:func:`run_dossier`'s stages.  Those using one core (the schedule study's LMI pair, the linear check
+    of the given gain sets, the linear studies) run in forked processes (``beside``) while this process runs
+    those that keep both cores busy (tuning, trade-off front, simulations); results are the same either way."""
+    from robust.beside import Beside
+    from robust.scheduling import pair_syntheses
+
+    progress = say
+    pair = beside.enter_context(Beside(pair_syntheses, case)) if case.schedule else None
     say("model facts")
     facts = model_facts(case)
     gains = [resolve_gain(case, s) for s in case.gains] + list(gain_files or [])
@@ -141,11 +156,17 @@ def run_dossier(
         except (Infeasible, ValueError) as exc:
             design_error = str(exc)
     tuning = None
+    rest_check = None
     if case.tuning and case.box.ranges:
         from robust.synthesis.tuning import tune_as_asked
 
+        if gains:  # the given gain sets' linear check runs beside the tuning
+            rest_check = beside.enter_context(Beside(run_check, case, list(gains)))
         tuning = tune_as_asked(case, gains, progress=say)
         gains = [tuning.gain, *gains]
+    if not gains:
+        raise ValueError("the dossier needs at least one gain set: add [gains.NAME], [synthesis] or a gain file")
+    studies = beside.enter_context(Beside(_linear_studies, case, list(gains)))
     front = None
     if tuning is not None and case.front:
         from robust.synthesis.front import trade_off
@@ -166,14 +187,15 @@ def run_dossier(
         from robust.scheduling import run_schedule_study
 
         say("what measuring the payload buys")
-        schedule = run_schedule_study(case, tuned=None if tuning is None else tuning.gain, progress=progress)
-    if not gains:
-        raise ValueError("the dossier needs at least one gain set: add [gains.NAME], [synthesis] or a gain file")
+        schedule = run_schedule_study(
+            case, tuned=None if tuning is None else tuning.gain, pair=pair.result(), progress=progress
+        )
     if tuning is not None and tuning.assessment is not None and len(gains) > 1:
         # the tuned gain was checked over the box with the case's study as the tuning's last step: reuse it
         from robust.assess import merge_assessments
 
-        rest = assess(case, gains[1:], design=design, progress=progress)
+        say(f"linear check of {len(gains) - 1} gain sets (run beside the tuning)")
+        rest = assess(case, gains[1:], design=design, check=rest_check.result(), progress=progress)
         a = merge_assessments(tuning.assessment, rest, rename={tuning.gain.name: tuning.gain})
     else:
         a = assess(case, gains, design=design, progress=progress)
@@ -182,30 +204,8 @@ def run_dossier(
         from robust.design import actuator_warnings
 
         design = replace(design, warnings=actuator_warnings(case, design.synthesis.spec, design.gain, a))
-    pts = np.concatenate(
-        [
-            corners(case.box),
-            plan_points(
-                case.box,
-                case.study.plan,
-                samples=case.study.samples,
-                seed=case.study.seed,
-                grid_points=case.study.grid_points,
-            ),
-        ]
-    )
-    model = reduced_model(case.box.plant(pts))
-    eigs = {g.name: eigenvalues_4x4(model.A - model.B @ g.K) for g in gains}
-    values = {
-        g.name: evaluate(case.box, pts, g.K, names=("disk_margin", "phase_margin", "delay_margin")) for g in gains
-    }
-    # loop shapes at each wheel input on the corners and the first samples (bands for the figures, peaks)
-    few = slice(0, min(len(pts), LOOP_SHAPE_MODELS))
-    freqs = np.logspace(-2, 3, 160)
-    shapes = {g.name: loop_shapes(model.A[few], model.B[few], g.K, freqs) for g in gains}
-    ctl = case.controller
-    sampled = {g.name: sampled_decay_rate(model.A, model.B, g.K, ctl.sample_period_s, ctl.latency_s) for g in gains}
-    sampled_margins, period_sweep = _sampled_studies(case, model, few, gains)
+    lin = studies.result()
+    pts = lin["points"]
     tolerances = _tolerance_studies(case, gains, a.verdicts, pts[len(corners(case.box)) :]) if case.box.ranges else {}
     inputs = []
     if Path(case.source).is_file():
@@ -239,11 +239,11 @@ def run_dossier(
         case=case,
         inputs=tuple(inputs),
         previous=previous,
-        loop_frequencies=freqs,
-        loop_shapes=shapes,
-        sampled_decay=sampled,
-        sampled_margins=sampled_margins,
-        period_sweep=period_sweep,
+        loop_frequencies=lin["frequencies"],
+        loop_shapes=lin["shapes"],
+        sampled_decay=lin["sampled_decay"],
+        sampled_margins=lin["sampled_margins"],
+        period_sweep=lin["period_sweep"],
         tolerances=tolerances,
         campaigns=tuple(campaigns or ()),
         front=front,
@@ -256,9 +256,47 @@ def run_dossier(
         design=design,
         tuning=tuning,
         design_error=design_error,
-        eigenvalues=eigs,
-        sample_values=values,
+        eigenvalues=lin["eigenvalues"],
+        sample_values=lin["values"],
     )
+
+
+def _linear_studies(case: Case, gains: list[GainSet]) -> dict:
+    """The dossier's linear studies of every gain set on the corners and the study's samples: closed-loop
+    eigenvalues, margin samples, loop shapes, the sampled-loop decay rate and margins, and the sample-period
+    sweep.  No simulation, so the dossier runs it beside the trade-off front."""
+    pts = np.concatenate(
+        [
+            corners(case.box),
+            plan_points(
+                case.box,
+                case.study.plan,
+                samples=case.study.samples,
+                seed=case.study.seed,
+                grid_points=case.study.grid_points,
+            ),
+        ]
+    )
+    model = reduced_model(case.box.plant(pts))
+    # loop shapes at each wheel input on the corners and the first samples (bands for the figures, peaks)
+    few = slice(0, min(len(pts), LOOP_SHAPE_MODELS))
+    freqs = np.logspace(-2, 3, 160)
+    ctl = case.controller
+    sampled_margins, period_sweep = _sampled_studies(case, model, few, gains)
+    return {
+        "points": pts,
+        "eigenvalues": {g.name: eigenvalues_4x4(model.A - model.B @ g.K) for g in gains},
+        "values": {
+            g.name: evaluate(case.box, pts, g.K, names=("disk_margin", "phase_margin", "delay_margin")) for g in gains
+        },
+        "frequencies": freqs,
+        "shapes": {g.name: loop_shapes(model.A[few], model.B[few], g.K, freqs) for g in gains},
+        "sampled_decay": {
+            g.name: sampled_decay_rate(model.A, model.B, g.K, ctl.sample_period_s, ctl.latency_s) for g in gains
+        },
+        "sampled_margins": sampled_margins,
+        "period_sweep": period_sweep,
+    }
 
 
 def _tolerance_studies(case: Case, gains, verdicts, samples: np.ndarray) -> dict[str, list[dict]]:

@@ -354,6 +354,7 @@ def _run_batch(P, K, M, T, latency, substeps, fall_angle, out, rec, rec_index):
 
 
 _LOADED = False
+_OWNER: int | None = None  # the process whose OpenMP runtime the kernel started
 
 
 def run_batch(
@@ -373,7 +374,14 @@ def run_batch(
     Rows with ``M[:, M_RECORD] > 0`` get a per-step record ``(record_steps, RECORD_COLUMNS)``;
     records are returned in row order of those rows.
     """
-    global _LOADED
+    global _LOADED, _OWNER
+    if _OWNER is None:
+        _OWNER = os.getpid()
+    elif _OWNER != os.getpid():
+        raise RuntimeError(
+            "the simulation kernel cannot run in a process forked after it started (the OpenMP runtime is "
+            "not fork-safe): run it in the main process (see robust.beside)"
+        )
     n = P.shape[0]
     out = np.empty((n, OUTPUT_COLUMNS))
     want = M[:, M_RECORD] > 0
@@ -386,6 +394,10 @@ def run_batch(
     # rows differ in length (manoeuvre durations, early stops): the threads take them one at a time
     chunk = numba.get_parallel_chunksize()
     numba.set_parallel_chunksize(1)
+    # a core busy with work run beside (robust.beside) is left to it
+    from robust.beside import busy
+
+    numba.set_num_threads(max(1, numba.config.NUMBA_NUM_THREADS - busy()))
     try:
         _run_batch(
             np.ascontiguousarray(P, dtype=np.float64),

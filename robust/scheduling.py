@@ -77,7 +77,8 @@ class ScheduleComparison:
         With a tuned gain: it, the scheduled gain tuned from it, both scores (smallest normalised margin)
         on the tuning scenarios, and how many scenario models there are.
     seconds
-        Wall time of the study. [s]
+        Wall time of the study in the process that ran it (without the LMI pair when that was computed
+        beside the caller's other stages). [s]
     """
 
     schedule: Schedule
@@ -160,20 +161,56 @@ def _worst(values: dict[str, np.ndarray]) -> dict[str, float]:
     return out
 
 
+def pair_syntheses(case: Case, progress: Callable[[str], None] | None = None) -> tuple[dict, dict, dict]:
+    """The study's LMI pair: the rigorous polytopes without and with the measured value, the best fixed and
+    the scheduled gains synthesized on them (largest certified decay rate, same constraints), and the reason
+    of each synthesis that failed: ``(polytopes, results, errors)`` by gain name.  Uses no simulation, so the
+    dossier runs it beside its other stages (:class:`robust.beside.Beside`)."""
+    if not case.schedule:
+        raise ValueError("the case has no [schedule] table: name the measured parameter and its error")
+    sched: Schedule = case.schedule["schedule"]
+    name = case.schedule["name"]
+    spec, _not_imposed = schedule_spec(case)
+    say = progress
+    if say is not None:
+        say("schedule study: the rigorous polytope with and without the measured value")
+    polys = {FIXED_NAME: moment_box(case.box), name: moment_box(case.box, schedule=sched)}
+    results: dict[str, SynthesisResult] = {}
+    errors: dict[str, str] = {}
+    for key, poly in polys.items():
+        if say is not None:
+            say(f"schedule study: LMI synthesis of the {'scheduled' if key == name else 'best fixed'} gain")
+        try:
+            results[key] = synthesize(poly, replace(spec, scheduled=key == name), progress=say)
+        except Infeasible as exc:
+            errors[key] = str(exc)
+    return polys, results, errors
+
+
+def schedule_spec(case: Case):
+    """The LMI request of the study's pair (the case's constraints with the decay-rate objective) and the
+    requirements it cannot impose."""
+    from robust.design import make_spec
+
+    return make_spec(case, {**OVERRIDES, **case.schedule.get("constraints", {})})
+
+
 def run_schedule_study(
     case: Case,
     *,
     tuned: GainSet | None = None,
     samples: int = SAMPLES,
     evaluations: int = 300,
+    pair: tuple[dict, dict, dict] | None = None,
     progress: Callable[[str], None] | None = None,
 ) -> ScheduleComparison:
     """Synthesize the best fixed gain and the scheduled gain and compare them on the same models.
 
     With ``tuned`` (the dossier's tuned gain) a scheduled gain is also tuned from it
     (:func:`robust.synthesis.tuning.tune_scheduled`, ``evaluations`` Nelder-Mead evaluations) and both
-    join the comparison, each with its fixed-gain LMI certificate."""
-    from robust.design import make_spec
+    join the comparison, each with its fixed-gain LMI certificate.  ``pair`` is the value of
+    :func:`pair_syntheses` for this case when the caller computed it already (the dossier, beside its
+    other stages)."""
     from robust.simulate import simulate
     from robust.synthesis.lmi import certify_gain
     from robust.synthesis.tuning import tune_scheduled
@@ -184,20 +221,10 @@ def run_schedule_study(
     sched: Schedule = case.schedule["schedule"]
     name = case.schedule["name"]
     fixed_name = FIXED_NAME
-    spec, not_imposed = make_spec(case, {**OVERRIDES, **case.schedule.get("constraints", {})})
+    spec, not_imposed = schedule_spec(case)
     say = progress
-    if say is not None:
-        say("schedule study: the rigorous polytope with and without the measured value")
-    polys = {fixed_name: moment_box(case.box), name: moment_box(case.box, schedule=sched)}
-    results: dict[str, SynthesisResult] = {}
-    errors: dict[str, str] = {}
-    for key, poly in polys.items():
-        if say is not None:
-            say(f"schedule study: LMI synthesis of the {'scheduled' if key == name else 'best fixed'} gain")
-        try:
-            results[key] = synthesize(poly, replace(spec, scheduled=key == name), progress=say)
-        except Infeasible as exc:
-            errors[key] = str(exc)
+    polys, results, errors = pair_syntheses(case, progress) if pair is None else pair
+    errors = dict(errors)
     prov = {"route": "moment_box", "lyapunov": "common", "objective": "decay"}
     fixed = scheduled = None
     if fixed_name in results:

@@ -15,8 +15,21 @@ CASE = Path(__file__).resolve().parent / "data" / "small_cart.toml"
 
 @pytest.fixture(scope="module")
 def two_runs(tmp_path_factory):
+    """Two dossiers of the same case: the first with its one-core stages run beside in forked processes
+    (the default on Linux), the second all in one process (``ROBUST_BESIDE=0``); they must be identical."""
+    import os
+
     base = tmp_path_factory.mktemp("dossier")
-    codes = [main(["dossier", str(CASE), "--out", str(base / name), "--quiet"]) for name in ("a", "b")]
+    codes = [main(["dossier", str(CASE), "--out", str(base / "a"), "--quiet"])]
+    before = os.environ.get("ROBUST_BESIDE")
+    os.environ["ROBUST_BESIDE"] = "0"
+    try:
+        codes.append(main(["dossier", str(CASE), "--out", str(base / "b"), "--quiet"]))
+    finally:
+        if before is None:
+            del os.environ["ROBUST_BESIDE"]
+        else:
+            os.environ["ROBUST_BESIDE"] = before
     return base / "a", base / "b", codes
 
 
