@@ -12,6 +12,8 @@ Rules for work given to :class:`Beside`:
 
 * it must not run the compiled kernel (:mod:`robust.engine`): the OpenMP runtime is not safe in a
   process forked after it started; the engine refuses such a call;
+* a library with its own thread pool must run on one thread there (the LMI solver Clarabel is set
+  to ``max_threads = 1`` for this reason: its pool, once started, does not survive a fork);
 * it must not print or write files (the caller reports and writes);
 * its result must pickle (numpy arrays and the project's dataclasses do).
 """
@@ -76,13 +78,18 @@ class Beside:
         """True while the work runs (or ran) in a forked process."""
         return self._pending is not None
 
-    def result(self):
-        """The value of the work (computed here if it was not forked)."""
+    def result(self, timeout: float | None = None):
+        """The value of the work (computed here if it was not forked); with ``timeout`` (seconds) a forked
+        work still running then is stopped and ``TimeoutError`` raised."""
         if self._pending is None:
             fn, args, kwargs = self._call
             return fn(*args, **kwargs)
+        import multiprocessing
+
         try:
-            return self._pending.get()
+            return self._pending.get(timeout)
+        except multiprocessing.TimeoutError:
+            raise TimeoutError(f"work run beside did not finish within {timeout} s") from None
         finally:
             self.close()
 

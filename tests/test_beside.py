@@ -102,3 +102,24 @@ def test_assess_uses_a_given_linear_check_and_refuses_one_of_other_gains(cart):
         assess(cart, other, study=study, time=False, check=chk)
     with pytest.raises(ValueError, match="other gain sets"):
         assess(cart, gains[:1], study=study, time=False, check=chk)
+
+
+def _cart_synthesis():
+    from robust.case import load_case
+    from robust.design import make_spec
+    from robust.synthesis.lmi import synthesize
+    from robust.synthesis.polytope import moment_box
+
+    case = load_case(Path(__file__).resolve().parents[1] / "cases" / "delivery_cart.toml")
+    r = synthesize(moment_box(case.box), make_spec(case)[0])
+    return r.K, r.decay_rate
+
+
+@linux
+def test_an_lmi_solve_in_a_forked_process_after_one_here_finishes_with_the_same_gain():
+    """The LMI solver's thread pool would deadlock a process forked after it started; with the solver on
+    one thread the forked solve finishes and gives the gain solved here."""
+    K, rate = _cart_synthesis()
+    with B.Beside(_cart_synthesis) as w:
+        K2, rate2 = w.result(timeout=120)
+    assert np.array_equal(K, K2) and rate == rate2
