@@ -181,7 +181,10 @@ def test_a_killed_campaign_resumes_to_the_same_result(small, tmp_path):
     case, gain = small
     store = tmp_path / "killed"
     args = [sys.executable, "-m", "robust", "campaign", str(SMALL), "--gain", "placed", "--manoeuvre", "go"]
-    args += ["--runs", "400", "--chunk", "20", "--target", "1e-6", "--store", str(store), "--in-process", "--quiet"]
+    runs, chunk = 4000, 20  # enough chunks that the kill lands mid-way however fast the kernel is
+    chunks = runs // chunk
+    args += ["--runs", str(runs), "--chunk", str(chunk), "--target", "1e-6", "--store", str(store), "--in-process"]
+    args += ["--quiet"]
     proc = subprocess.Popen(args, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
     try:
         deadline = time.time() + 120
@@ -191,10 +194,10 @@ def test_a_killed_campaign_resumes_to_the_same_result(small, tmp_path):
     finally:
         proc.wait()
     done_before = len(list((store / "chunks").glob("chunk-*.parquet")))
-    assert 2 <= done_before < 20 and (store / "LOCK").exists()  # killed mid-way, its lock left behind
-    spec = make_spec(case, gain, "go", runs=400, chunk=20, target=1e-6)
+    assert 2 <= done_before < chunks and (store / "LOCK").exists()  # killed mid-way, its lock left behind
+    spec = make_spec(case, gain, "go", runs=runs, chunk=chunk, target=1e-6)
     resumed = run_campaign(case, spec, store, in_process=True)
-    assert resumed.chunks_computed_now == 20 - done_before and resumed.runs_done == 400
+    assert resumed.chunks_computed_now == chunks - done_before and resumed.runs_done == runs
     run_campaign(case, spec, tmp_path / "whole", in_process=True)
     assert _same(read_store(store), read_store(tmp_path / "whole"))
     assert not list((store / "chunks").glob(".*.tmp")) and not (store / "LOCK").exists()
