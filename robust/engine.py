@@ -397,7 +397,8 @@ def run_batch(
     # a core busy with work run beside (robust.beside) is left to it
     from robust.beside import busy
 
-    numba.set_num_threads(max(1, numba.config.NUMBA_NUM_THREADS - busy()))
+    threads = numba.get_num_threads()
+    numba.set_num_threads(max(1, threads - busy()))
     try:
         _run_batch(
             np.ascontiguousarray(P, dtype=np.float64),
@@ -413,6 +414,7 @@ def run_batch(
         )
     finally:
         numba.set_parallel_chunksize(chunk)
+        numba.set_num_threads(threads)
     if not _LOADED:
         _LOADED = True
         took = time.perf_counter() - t0

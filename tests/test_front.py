@@ -130,3 +130,17 @@ def test_dossier_draws_the_front(tmp_path):
     assert [p["bound"] for p in data["front"]["points"]] == pytest.approx([3.2, 4.8])
     schema = json.loads(resources.files("robust.report").joinpath("results.schema.json").read_text())
     jsonschema.validate(data, schema, cls=jsonschema.Draft202012Validator)
+
+
+def test_a_trial_gain_unstable_on_a_scenario_scores_worst_instead_of_failing(tmp_path):
+    """The scorer stops at the linear metrics for a gain unstable on a scenario (nothing is simulated), so a
+    time-domain objective has no value there: the search must rank that trial worst, not stop."""
+    from robust.synthesis.front import _objective_value
+    from robust.synthesis.tuning import _Scorer
+
+    case = load_case(_variant(tmp_path, WITH_TUNING))
+    scorer = _Scorer(case, corners(case.box))
+    m = scorer.margins(np.zeros((2, 4)))  # no feedback: the upright vehicle falls (open-loop unstable)
+    assert m["closed_loop_stable"] < 0
+    value, unit = _objective_value(scorer, ["max_wheel_torque_n_m"], "max_wheel_torque_n_m")
+    assert np.isnan(value) and unit == ""

@@ -70,9 +70,11 @@ def _keys_of(margins: dict[str, float], requirement: str) -> list[str]:
 
 
 def _objective_value(scorer: _Scorer, keys: list[str], requirement: str) -> tuple[float, str]:
+    """The objective's worst value on the scenarios and its unit; ``(nan, "")`` where the last gain scored was
+    not simulated (unstable on a scenario: the scorer stops at the linear metrics)."""
     values = [scorer.worst[k] for k in keys if k in scorer.worst]
     if not values:
-        raise ValueError(f"objective {requirement!r}: no value on the scenarios")
+        return float("nan"), ""
     unit = values[0][1]
     nums = [v for v, _u in values]
     return (min(nums) if requirement.startswith("min_") or requirement == STABILITY else max(nums)), unit
@@ -92,6 +94,8 @@ def _maximise(
         )
     sign = 1.0 if objective.startswith("min_") or objective == STABILITY else -1.0
     v0, u0 = _objective_value(scorer, keys, objective)
+    if not u0:
+        raise ValueError(f"objective {objective!r}: no value on the scenarios")
     bound0 = case.requirements.get(objective)
     obj_scale = _scale(bound0 if bound0 else (abs(v0) if np.isfinite(v0) and v0 else 1.0), u0)
     scale = np.where(np.abs(theta0) > 1e-3, theta0, 1e-3)
@@ -114,6 +118,7 @@ def _maximise(
     r = optimize.minimize(f, np.ones(4), method="Nelder-Mead", options={"maxfev": evaluations, "xatol": 1e-3})
     theta = r.x * scale
     _m, others, value, unit = parts(r.x)
+    unit = unit or u0
     low_key = min(others, key=others.get) if others else ""
     low = others[low_key] if others else 0.0
     point = FrontPoint(
