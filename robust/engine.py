@@ -148,6 +148,17 @@ def _delivered(P, wanted_l, wanted_r, v, w, q, inv_r, inv_res):
 
 
 @numba.njit(cache=True, inline="always")
+def _stage(P, v, w, p, q, hd, dv, dw, dp, dq, dhd, f, wl, wr, pf, ph, live, inv_r, inv_res):
+    """One later RK4 stage: the state moved by ``f`` times the previous stage's slopes, the drive's torques
+    there, and the slopes there: ``(speed, heading, dv, dw, dp, dq, dheading)``."""
+    sv, sw, sp, sq = v + f * dv, w + f * dw, p + f * dp, q + f * dq
+    s_hd = hd + f * dhd
+    tl, tr = _delivered(P, wl, wr, sv, sw, sq, inv_r, inv_res)
+    av, aw, ap, aq = _accel(P, sv, sw, sp, sq, tl, tr, pf, ph, live, inv_r)
+    return sv, s_hd, av, aw, ap, aq, sw * live
+
+
+@numba.njit(cache=True, inline="always")
 def _response(o, base, t, y, target, start, live):
     """Online rise / overshoot / settling statistics (same rules as the numpy reference engine)."""
     sgn = 0.0 if target == 0 else (1.0 if target > 0 else -1.0)
@@ -201,7 +212,6 @@ def _run_row(P, K, M, T, latency, substeps, fall_angle, o, rec):
         nseg = 1
     u0_prev = u1_prev = 0.0
     tq0 = tq1 = cur0 = cur1 = 0.0
-    x1 = y1 = x2 = y2 = x3 = y3 = x4 = y4 = 0.0
     inv_r = 1.0 / P[P_R]
     inv_res = 1.0 / P[P_RES]
     fell = False
@@ -295,33 +305,25 @@ def _run_row(P, K, M, T, latency, substeps, fall_angle, o, rec):
                 a1v, a1w, a1p, a1q = _accel(P, v, w, p, q, tq0, tq1, pf, ph, livef, inv_r)
                 h1 = w * livef
                 hh = 0.5 * h
-                sv, sw, sp, sq = v + hh * a1v, w + hh * a1w, p + hh * a1p, q + hh * a1q
-                s_hd = hd + hh * h1
-                tl, tr = _delivered(P, wl, wr, sv, sw, sq, inv_r, inv_res)
-                a2v, a2w, a2p, a2q = _accel(P, sv, sw, sp, sq, tl, tr, pf, ph, livef, inv_r)
-                h2 = sw * livef
+                s2v, s2hd, a2v, a2w, a2p, a2q, h2 = _stage(
+                    P, v, w, p, q, hd, a1v, a1w, a1p, a1q, h1, hh, wl, wr, pf, ph, livef, inv_r, inv_res
+                )
+                s3v, s3hd, a3v, a3w, a3p, a3q, h3 = _stage(
+                    P, v, w, p, q, hd, a2v, a2w, a2p, a2q, h2, hh, wl, wr, pf, ph, livef, inv_r, inv_res
+                )
+                s4v, s4hd, a4v, a4w, a4p, a4q, h4 = _stage(
+                    P, v, w, p, q, hd, a3v, a3w, a3p, a3q, h3, h, wl, wr, pf, ph, livef, inv_r, inv_res
+                )
+                h6 = h / 6.0
                 if record:
                     x1 = v * math.cos(hd) * livef
                     y1 = v * math.sin(hd) * livef
-                    x2 = sv * math.cos(s_hd) * livef
-                    y2 = sv * math.sin(s_hd) * livef
-                sv, sw, sp, sq = v + hh * a2v, w + hh * a2w, p + hh * a2p, q + hh * a2q
-                s_hd = hd + hh * h2
-                tl, tr = _delivered(P, wl, wr, sv, sw, sq, inv_r, inv_res)
-                a3v, a3w, a3p, a3q = _accel(P, sv, sw, sp, sq, tl, tr, pf, ph, livef, inv_r)
-                h3 = sw * livef
-                if record:
-                    x3 = sv * math.cos(s_hd) * livef
-                    y3 = sv * math.sin(s_hd) * livef
-                sv, sw, sp, sq = v + h * a3v, w + h * a3w, p + h * a3p, q + h * a3q
-                s_hd = hd + h * h3
-                tl, tr = _delivered(P, wl, wr, sv, sw, sq, inv_r, inv_res)
-                a4v, a4w, a4p, a4q = _accel(P, sv, sw, sp, sq, tl, tr, pf, ph, livef, inv_r)
-                h4 = sw * livef
-                h6 = h / 6.0
-                if record:
-                    x4 = sv * math.cos(s_hd) * livef
-                    y4 = sv * math.sin(s_hd) * livef
+                    x2 = s2v * math.cos(s2hd) * livef
+                    y2 = s2v * math.sin(s2hd) * livef
+                    x3 = s3v * math.cos(s3hd) * livef
+                    y3 = s3v * math.sin(s3hd) * livef
+                    x4 = s4v * math.cos(s4hd) * livef
+                    y4 = s4v * math.sin(s4hd) * livef
                     px = px + h6 * (x1 + 2.0 * x2 + 2.0 * x3 + x4)
                     py = py + h6 * (y1 + 2.0 * y2 + 2.0 * y3 + y4)
                 hd = hd + h6 * (h1 + 2.0 * h2 + 2.0 * h3 + h4)
