@@ -61,11 +61,20 @@ def test_an_error_of_the_work_is_raised_by_result():
 
 
 @linux
+def test_a_forked_process_that_dies_without_a_result_is_an_error_not_a_wait():
+    with B.Beside(os._exit, 7) as w, pytest.raises(RuntimeError, match="exit code 7"):
+        w.result(timeout=60)
+    with pytest.raises(RuntimeError, match="collected already"):
+        w.result()
+
+
+@linux
 def test_close_stops_the_forked_process_at_once():
     t0 = time.perf_counter()
     w = B.Beside(time.sleep, 60)
-    assert w.forked
+    assert w.forked and B.busy() == 1  # the kernel leaves this process a core
     w.close()
+    assert B.busy() == 0
     w.close()  # idempotent
     assert time.perf_counter() - t0 < 10
 
