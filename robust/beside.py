@@ -14,7 +14,8 @@ Rules for work given to :class:`Beside`:
   process forked after it started; the engine refuses such a call;
 * a library with its own thread pool must run on one thread there (the LMI solver Clarabel is set
   to ``max_threads = 1`` for this reason: its pool, once started, does not survive a fork);
-* it must not print or write files (the caller reports and writes);
+* it must not print or write files (the caller reports and writes), nor start processes of its own
+  (the forked process is a daemon, which may have none);
 * its result must pickle (numpy arrays and the project's dataclasses do).
 """
 
