@@ -69,7 +69,12 @@ def assess(
         raise ValueError("assess: the given linear check is of other gain sets, another study or another case")
     if check is not None and not all(np.array_equal(c.gain.K, g.K) for c, g in zip(check.gains, gains)):
         raise ValueError("assess: the given linear check is of other gain matrices")
-    chk = (check or run_check(case, gains, study=study, progress=progress)) if linear else None
+    if not linear:
+        chk = None
+    elif check is not None:
+        chk = check
+    else:
+        chk = run_check(case, gains, study=study, progress=progress)
     tm = run_time_check(case, gains, study=study, progress=progress) if time else None
     certificates = certify_gains(case, gains, chk, progress=progress) if certify and chk is not None else None
     verdicts = verdicts_for(

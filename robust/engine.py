@@ -131,20 +131,9 @@ def _accel(P, v, w, p, q, tl, tr, pf, ph, live, inv_r):
 def _delivered(P, wanted_l, wanted_r, v, w, q, inv_r, inv_res):
     """Delivered torques ``(left, right)`` for wanted currents at a state (no bookkeeping)."""
     d = P[P_D]
-    tl = 0.0
-    tr = 0.0
-    for j in range(2):
-        spin = ((v - d * w) if j == 0 else (v + d * w)) * inv_r - q
-        v_hi = (P[P_V] - P[P_KE] * spin) * inv_res
-        v_lo = (-P[P_V] - P[P_KE] * spin) * inv_res
-        lo = min(max(-P[P_IMAX], v_lo), v_hi)
-        hi = min(max(P[P_IMAX], v_lo), v_hi)
-        wanted = wanted_l if j == 0 else wanted_r
-        if j == 0:
-            tl = P[P_KT] * min(max(wanted, lo), hi)
-        else:
-            tr = P[P_KT] * min(max(wanted, lo), hi)
-    return tl, tr
+    current_l = _drive(P, wanted_l, (v - d * w) * inv_r - q, inv_res)[0]
+    current_r = _drive(P, wanted_r, (v + d * w) * inv_r - q, inv_res)[0]
+    return P[P_KT] * current_l, P[P_KT] * current_r
 
 
 @numba.njit(cache=True, inline="always")

@@ -140,7 +140,8 @@ def test_a_trial_gain_unstable_on_a_scenario_scores_worst_instead_of_failing(tmp
 
     case = load_case(_variant(tmp_path, WITH_TUNING))
     scorer = _Scorer(case, corners(case.box))
-    m = scorer.margins(np.zeros((2, 4)))  # no feedback: the upright vehicle falls (open-loop unstable)
+    # no feedback: the upright vehicle falls (an inverted pendulum is open-loop unstable; common practice)
+    m = scorer.margins(np.zeros((2, 4)))
     assert m["closed_loop_stable"] < 0
     value, unit = _objective_value(scorer, ["max_wheel_torque_n_m"], "max_wheel_torque_n_m")
     assert np.isnan(value) and unit == ""

@@ -51,16 +51,17 @@ import numpy as np
 from robust.synthesis.polytope import Polytope
 
 SOLVERS = ("CLARABEL", "SCS")
+# Clarabel on one thread (added to every solve by _solve): its thread pool (rayon) does not survive a fork, and
+# the dossier solves LMIs in a forked process beside its simulations (robust.beside); measured no slower here
+ALWAYS_OPTIONS = {"CLARABEL": {"max_threads": 1}}
 # bounded effort: an ill-conditioned request fails in seconds instead of grinding for minutes
-# Clarabel on one thread: its thread pool (rayon) does not survive a fork, and the dossier solves LMIs in a
-# forked process beside its simulations (robust.beside); measured no slower on these problem sizes
 SOLVER_OPTIONS = {
-    "CLARABEL": {"max_iter": 200, "time_limit": 20.0, "max_threads": 1},
+    "CLARABEL": {"max_iter": 200, "time_limit": 20.0},
     "SCS": {"max_iters": 20000, "time_limit_secs": 20.0},
 }
 # second try when the first stops without a conclusion (a limit or an inaccurate point is never a proof)
 SOLVER_OPTIONS_ESCALATED = {
-    "CLARABEL": {"max_iter": 2000, "time_limit": 300.0, "max_threads": 1},
+    "CLARABEL": {"max_iter": 2000, "time_limit": 300.0},
     "SCS": {"max_iters": 200000, "time_limit_secs": 300.0},
 }
 
@@ -69,17 +70,10 @@ SOLVER_OPTIONS_ESCALATED = {
 # how close to the optimum the search gets, never what is certified
 # (one solver: a search solve that fails only ends the search, so a slow second solver is not worth its time)
 SEARCH_OPTIONS = {
-    "CLARABEL": {
-        "max_iter": 200,
-        "time_limit": 20.0,
-        "tol_gap_abs": 1e-6,
-        "tol_gap_rel": 1e-6,
-        "tol_feas": 1e-7,
-        "max_threads": 1,
-    },
+    "CLARABEL": {"max_iter": 200, "time_limit": 20.0, "tol_gap_abs": 1e-6, "tol_gap_rel": 1e-6, "tol_feas": 1e-7},
 }
 # the smallest gain at the rate found: a feasible solve takes a few seconds, one that takes longer is at the edge
-FINAL_OPTIONS = {"CLARABEL": {"max_iter": 200, "time_limit": 8.0, "max_threads": 1}}
+FINAL_OPTIONS = {"CLARABEL": {"max_iter": 200, "time_limit": 8.0}}
 
 
 def proved_infeasible(status: str) -> bool:
@@ -317,7 +311,7 @@ def _solve(prob: cp.Problem, effort: int = 0, options: dict | None = None):
         try:
             with warnings.catch_warnings():  # the status is handled below and the certificate re-checked
                 warnings.simplefilter("ignore", UserWarning)
-                prob.solve(solver=name, **options.get(name, {}))
+                prob.solve(solver=name, **{**ALWAYS_OPTIONS.get(name, {}), **options.get(name, {})})
         except cp.error.SolverError as exc:
             last = f"{name}: {exc}"
             continue
