@@ -112,6 +112,17 @@ def certify_gains(case: Case, gains: list[GainSet], check: CheckResult, *, progr
     return out
 
 
+def joined(a, b, swap=None):
+    """One linear (or time-domain) check of the gain sets of ``a`` then ``b``, both of the same case and study;
+    ``swap`` maps each per-gain record of ``a`` (default: kept as it is)."""
+    from dataclasses import replace
+
+    if a.study != b.study or a.case_sha256 != b.case_sha256:
+        raise ValueError("the checks were made with different cases or studies")
+    first = a.gains if swap is None else tuple(swap(g) for g in a.gains)
+    return replace(a, gains=tuple(first) + tuple(b.gains), passed=a.passed and b.passed)
+
+
 def merge_assessments(first: Assessment, second: Assessment, *, rename: dict | None = None) -> Assessment:
     """One assessment of the gain sets of ``first`` then ``second`` (same case and study).
 
@@ -142,9 +153,7 @@ def merge_assessments(first: Assessment, second: Assessment, *, rename: dict | N
             if a is not None or b is not None:
                 raise ValueError("one assessment has a part the other lacks")
             return None
-        if a.study != b.study or a.case_sha256 != b.case_sha256:
-            raise ValueError("the assessments were made with different cases or studies")
-        return replace(a, gains=tuple(swap(g) for g in a.gains) + b.gains, passed=a.passed and b.passed)
+        return joined(a, b, swap)
 
     certs = None
     if first.certificates is not None or second.certificates is not None:

@@ -23,7 +23,7 @@ from robust.analysis.eigen import eigenvalues_4x4
 from robust.analysis.margins import loop_shapes
 from robust.analysis.metrics import evaluate
 from robust.analysis.sampled import sampled_decay_rate
-from robust.assess import assess
+from robust.assess import assess, joined
 from robust.case import Case, resolve_gain
 from robust.check import CheckResult, run_check
 from robust.gains import GainSet, gain_file_text
@@ -138,9 +138,12 @@ def _run(case: Case, beside, gain_files, gain_paths, synthesize, previous, campa
 
     progress = say
     pair = beside.enter_context(Beside(pair_syntheses, case)) if case.schedule else None
+    gains = [resolve_gain(case, s) for s in case.gains] + list(gain_files or [])
+    tuned = bool(case.tuning and case.box.ranges)
+    # with a tuning, the given gain sets' linear check runs beside everything up to the tuning's end
+    given_check = beside.enter_context(Beside(run_check, case, list(gains))) if tuned and gains else None
     say("model facts")
     facts = model_facts(case)
-    gains = [resolve_gain(case, s) for s in case.gains] + list(gain_files or [])
     design = None
     design_error = None
     if synthesize and case.synthesis and case.box.ranges:
@@ -156,12 +159,12 @@ def _run(case: Case, beside, gain_files, gain_paths, synthesize, previous, campa
         except (Infeasible, ValueError) as exc:
             design_error = str(exc)
     tuning = None
-    rest_check = None
-    if case.tuning and case.box.ranges:
+    lmi_check = None
+    if tuned:
         from robust.synthesis.tuning import tune_as_asked
 
-        if gains:  # the given gain sets' linear check runs beside the tuning
-            rest_check = beside.enter_context(Beside(run_check, case, list(gains)))
+        if design is not None:  # and the LMI gain's beside the tuning
+            lmi_check = beside.enter_context(Beside(run_check, case, [gains[0]]))
         tuning = tune_as_asked(case, gains, progress=say)
         gains = [tuning.gain, *gains]
     if not gains:
@@ -195,7 +198,9 @@ def _run(case: Case, beside, gain_files, gain_paths, synthesize, previous, campa
         from robust.assess import merge_assessments
 
         say(f"linear check of {len(gains) - 1} gain sets (run beside the tuning)")
-        rest = assess(case, gains[1:], design=design, check=rest_check.result(), progress=progress)
+        parts = [b.result() for b in (lmi_check, given_check) if b is not None]
+        rest_check = parts[0] if len(parts) == 1 else joined(*parts)
+        rest = assess(case, gains[1:], design=design, check=rest_check, progress=progress)
         a = merge_assessments(tuning.assessment, rest, rename={tuning.gain.name: tuning.gain})
     else:
         a = assess(case, gains, design=design, progress=progress)

@@ -106,6 +106,17 @@ def test_assess_uses_a_given_linear_check_and_refuses_one_of_other_gains(cart):
     for ga, gb in zip(a.check.gains, b.check.gains):
         for sa, sb in zip(ga.summaries, gb.summaries):
             assert sa.worst.value == sb.worst.value or (np.isnan(sa.worst.value) and np.isnan(sb.worst.value))
+    # checks run apart (the dossier checks the LMI gain and the given ones in two processes) join into
+    # the check of all of them at once
+    from robust.assess import joined
+
+    both = joined(run_check(cart, gains[:1], study=study), run_check(cart, gains[1:], study=study))
+    import pickle
+
+    assert [pickle.dumps(g) for g in both.gains] == [pickle.dumps(g) for g in chk.gains]
+    assert replace(both, gains=()) == replace(chk, gains=())
+    with pytest.raises(ValueError, match="different cases or studies"):
+        joined(chk, run_check(cart, gains, study=replace(study, seed=2)))
     other = [replace(gains[0], K=1.1 * gains[0].K), *gains[1:]]
     with pytest.raises(ValueError, match="other gain matrices"):
         assess(cart, other, study=study, time=False, check=chk)
