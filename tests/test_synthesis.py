@@ -445,3 +445,37 @@ def test_decay_objective_matches_a_bisection_on_the_same_lmis():
             hi = mid
     resolution = (2.0 * r.decay_rate + 1.0 - spec.decay_rate) / 2**steps
     assert abs(r.decay_rate - lo) <= resolution + 0.03 * lo, (r.decay_rate, lo)
+
+
+def test_rate_search_closes_in_few_solves_when_the_root_sits_next_to_the_certified_rate(monkeypatch):
+    """The rate search on a model of its own solves: a slack ``s(a)`` that rises steeply past the root
+    ``r`` (so bisection from a far upper trial walks down in halvings) and points that certify just below
+    the trial rate.  The search must return a rate within its tolerance below ``r``, never above, and
+    close the bracket in far fewer solves than halvings from the first upper trial would take
+    (root bracketing with a secant step; common practice, e.g. Press et al., Numerical Recipes, 3rd ed.,
+    sec. 9.2)."""
+    import math
+
+    from robust.synthesis import lmi
+
+    root = 0.3934
+    calls = []
+
+    def fake_solve(poly, spec, a, delta):
+        calls.append(a)
+        s = math.expm1(8.0 * (a - root))
+        return np.eye(4), None, None, s, "model: optimal"
+
+    def fake_rate(poly, spec, X1, Y, slacks, delta):
+        # a point certifies more than its trial rate while the slack is negative, never the root itself
+        a = calls[-1]
+        return min(root * (1.0 - 1e-3), a - math.expm1(8.0 * (a - root)) / 8.0)
+
+    monkeypatch.setattr(lmi, "_slack_solve", fake_solve)
+    monkeypatch.setattr(lmi, "_rate_of", fake_rate)
+    rate, point, solves, _status = lmi._raise_rate(None, None, 0.01, 1e-6)
+    tol = lmi.RATE_TOLERANCE * root
+    assert point is not None
+    assert root * (1.0 - 1e-3) - 2.0 * tol <= rate <= root
+    assert solves == len(calls)
+    assert solves <= 10, calls

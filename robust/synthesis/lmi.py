@@ -752,8 +752,12 @@ def _raise_rate(
     - while no trial has ``s >= 0``: the largest of the rate the last point certifies (a Dinkelbach step,
       Crouzeix and Ferland 1991), the secant root of the last two ``(a, s)`` pairs with ``s < 0``, and
       twice the last rise of the certified rate (at most ``max(2 lo, lo + 1)``);
-    - once a trial has ``s >= 0`` (an upper bracket): bisection, alternating with the secant root when it
-      falls inside the bracket, so the bracket at least halves every second solve.
+    - once a trial has ``s >= 0`` (an upper bracket): a guess of the root, the secant root above when it
+      falls inside the bracket, else the false-position root of the closest trials with ``s < 0`` and
+      ``s >= 0``; a guess closer than one tolerance to an end of the bracket is tried one tolerance inside
+      it (so a root next to the certified rate closes the bracket in one solve instead of a walk of
+      halvings down to it).  A guess that did not halve the bracket is followed by a bisection, so the
+      bracket at least halves every second solve.
 
     Whatever the solver returns, only numpy decides what is certified: each point certifies exactly the
     rate :func:`_rate_of` computes from it.  The search stops when the bracket, or the predicted gain,
@@ -766,8 +770,9 @@ def _raise_rate(
     lo, best, solves, status = float(a0), None, 0, "not started"
     hi = np.inf if cap is None else float(cap)
     below: list[tuple[float, float]] = []  # (trial rate, s < 0), in order
+    above: tuple[float, float] | None = None  # (trial rate, s >= 0) of the lowest such trial
     gain = 0.0  # the last rise of the certified rate
-    use_secant = False
+    guessed = None  # the bracket's width when the last trial was a guess (not a bisection)
     a = lo
     for _ in range(RATE_STEPS_MAX):
         if say is not None:
@@ -790,6 +795,8 @@ def _raise_rate(
                 below.append((a, s_val))
             else:
                 hi = min(hi, a)
+                if above is None or a <= above[0]:
+                    above = (a, s_val)
         tol = max(RATE_TOLERANCE * max(lo, 1e-12), 1e-4)
         if hi - lo <= tol:
             break
@@ -801,10 +808,19 @@ def _raise_rate(
         if np.isfinite(hi):
             # bracketed: the secant root when it falls inside, alternating with bisection so that the
             # bracket at least halves every second solve whatever the solver's s is worth near the answer
-            mid = 0.5 * (lo + hi)
-            use_secant = not use_secant
-            inside = secant is not None and lo + 0.5 * tol < secant < hi - 0.5 * tol
-            a = secant if (use_secant and inside) else mid
+            # a guess step that did not halve the bracket is followed by a bisection
+            bisect = guessed is not None and hi - lo > 0.5 * guessed
+            guessed = None
+            guess = secant if secant is not None and lo + tol < secant < hi - tol else None
+            if guess is None and below and above is not None:  # false position between the closest trials
+                (ab, sb), (ah, sh) = max(below), above
+                if sh > sb:
+                    guess = ab - sb * (ah - ab) / (sh - sb)
+            a = 0.5 * (lo + hi)
+            if not bisect and guess is not None and lo + 2.0 * tol < hi:
+                # a root predicted within a tolerance of an end is tried a whole tolerance inside it: at the
+                # low end one solve then either closes the bracket or lifts the certified rate
+                a, guessed = min(max(guess, lo + tol), hi - tol), hi - lo
             continue
         nxt = max(lo, lo + 2.0 * gain)  # the Dinkelbach step, or a doubling of the last rise
         if secant is not None:
