@@ -125,11 +125,20 @@ def run_dossier(
     """
     with contextlib.ExitStack() as beside:
         return _run(
-            case, beside, gain_files, gain_paths, synthesize, previous, campaigns, progress or (lambda _m: None)
+            case,
+            beside,
+            gain_files=gain_files,
+            gain_paths=gain_paths,
+            synthesize=synthesize,
+            previous=previous,
+            campaigns=campaigns,
+            say=progress or (lambda _m: None),
         )
 
 
-def _run(case: Case, beside, gain_files, gain_paths, synthesize, previous, campaigns, say) -> DossierData:
+def _run(
+    case: Case, beside, *, gain_files, gain_paths, synthesize, previous, campaigns, say: Callable[[str], None]
+) -> DossierData:
     """:func:`run_dossier`'s stages.  Those using one core (the schedule study's LMI pair, the linear check
     of the given gain sets, the linear studies) run in forked processes (``beside``) while this process runs
     those that keep both cores busy (tuning, trade-off front, simulations); results are the same either way."""
