@@ -806,9 +806,8 @@ def _raise_rate(
             if s2 > s1 and a2 != a1:
                 secant = a2 - s2 * (a2 - a1) / (s2 - s1)  # the secant root of the last two trials below
         if np.isfinite(hi):
-            # bracketed: the secant root when it falls inside, alternating with bisection so that the
-            # bracket at least halves every second solve whatever the solver's s is worth near the answer
-            # a guess step that did not halve the bracket is followed by a bisection
+            # bracketed: a guess of the root; a guess that did not halve the bracket is followed by a bisection,
+            # so the bracket at least halves every second solve whatever the solver's s is worth near the answer
             bisect = guessed is not None and hi - lo > 0.5 * guessed
             guessed = None
             guess = secant if secant is not None and lo + tol < secant < hi - tol else None
