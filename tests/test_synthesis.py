@@ -478,4 +478,4 @@ def test_rate_search_closes_in_few_solves_when_the_root_sits_next_to_the_certifi
     assert point is not None
     assert root * (1.0 - 1e-3) - 2.0 * tol <= rate <= root
     assert solves == len(calls)
-    assert solves <= 10, calls
+    assert solves <= 8, calls  # 7 now; the alternation of bisection and secant before took 11
