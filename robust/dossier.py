@@ -139,13 +139,13 @@ def run_dossier(
 def _run(
     case: Case, beside, *, gain_files, gain_paths, synthesize, previous, campaigns, say: Callable[[str], None]
 ) -> DossierData:
-    """:func:`run_dossier`'s stages.  Those using one core (the schedule study's LMI pair, the linear check
-    of the given gain sets, the linear studies) run in forked processes (``beside``) while this process runs
-    those that keep both cores busy (tuning, trade-off front, simulations); results are the same either way."""
+    """:func:`run_dossier`'s stages.  Those using one core (the schedule study's LMI pair and the given gain
+    sets' linear check from the start, the LMI gain's linear check beside the tuning, the linear studies after
+    it) run in forked processes (``beside``) while this process runs those that keep both cores busy (tuning,
+    trade-off front, simulations); results are the same either way."""
     from robust.beside import Beside
     from robust.scheduling import pair_syntheses
 
-    progress = say
     pair = beside.enter_context(Beside(pair_syntheses, case)) if case.schedule else None
     gains = [resolve_gain(case, s) for s in case.gains] + list(gain_files or [])
     tuned = bool(case.tuning and case.box.ranges)
@@ -161,7 +161,7 @@ def _run(
 
         say("LMI synthesis")
         try:
-            design = run_design(case, progress=progress, assess_gains=False)
+            design = run_design(case, progress=say, assess_gains=False)
             # the dossier carries its date in its documents only, so results stay byte-identical
             undated = replace(design.gain, provenance={k: v for k, v in design.gain.provenance.items() if k != "date"})
             gains = [undated, *gains]
@@ -192,7 +192,7 @@ def _run(
             objective=fr["objective"],
             bounds=[bound * f for f in fr["factors"]],
             evaluations=fr["evaluations"],
-            progress=progress,
+            progress=say,
         )
     schedule = None
     if case.schedule:
@@ -200,7 +200,7 @@ def _run(
 
         say("what measuring the payload buys")
         schedule = run_schedule_study(
-            case, tuned=None if tuning is None else tuning.gain, pair=pair.result(), progress=progress
+            case, tuned=None if tuning is None else tuning.gain, pair=pair.result(), progress=say
         )
     if tuning is not None and tuning.assessment is not None and len(gains) > 1:
         # the tuned gain was checked over the box with the case's study as the tuning's last step: reuse it
@@ -209,10 +209,10 @@ def _run(
         say(f"linear check of {len(gains) - 1} gain sets (run beside the tuning)")
         parts = [b.result() for b in (lmi_check, given_check) if b is not None]
         rest_check = parts[0] if len(parts) == 1 else joined(*parts)
-        rest = assess(case, gains[1:], design=design, check=rest_check, progress=progress)
+        rest = assess(case, gains[1:], design=design, check=rest_check, progress=say)
         a = merge_assessments(tuning.assessment, rest, rename={tuning.gain.name: tuning.gain})
     else:
-        a = assess(case, gains, design=design, progress=progress)
+        a = assess(case, gains, design=design, progress=say)
     check, time = a.check, a.time
     if design is not None:  # with the time-domain check at hand, say whether the LMI gain saturates the drive
         from robust.design import actuator_warnings

@@ -91,9 +91,10 @@ def test_the_kernel_refuses_to_run_in_a_process_forked_after_it_started():
 def test_assess_uses_a_given_linear_check_and_refuses_one_of_other_gains(cart):
     """A linear check run beforehand (the dossier runs it beside the tuning) gives the assessment the
     check would give; one of other gain matrices is refused."""
+    import pickle
     from dataclasses import replace
 
-    from robust.assess import assess
+    from robust.assess import assess, joined
     from robust.case import Study, resolve_gain
     from robust.check import run_check
 
@@ -108,11 +109,7 @@ def test_assess_uses_a_given_linear_check_and_refuses_one_of_other_gains(cart):
             assert sa.worst.value == sb.worst.value or (np.isnan(sa.worst.value) and np.isnan(sb.worst.value))
     # checks run apart (the dossier checks the LMI gain and the given ones in two processes) join into
     # the check of all of them at once
-    from robust.assess import joined
-
     both = joined(run_check(cart, gains[:1], study=study), run_check(cart, gains[1:], study=study))
-    import pickle
-
     assert [pickle.dumps(g) for g in both.gains] == [pickle.dumps(g) for g in chk.gains]
     assert replace(both, gains=()) == replace(chk, gains=())
     with pytest.raises(ValueError, match="different cases or studies"):
